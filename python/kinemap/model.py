@@ -1,0 +1,303 @@
+"""Atomistic models: positions, species, occupancies and displacement parameters.
+
+Conventions: positions are Cartesian in Å (fractional coordinates are converted with the
+cell before anything else); a cell is a 3x3 array whose rows are the lattice vectors a, b, c.
+Isotropic displacements are given as B (Å²) or U_iso (Å², B = 8π²U); anisotropic ones as a
+Cartesian 3x3 U tensor (Å²), whose Debye–Waller factor is T(q) = exp(−½ qᵀUq) and which
+reduces to exp(−B s²) for U = U_iso·I.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+
+import numpy as np
+
+from .errors import InvalidInputError
+
+#: Largest number of distinct (species, displacement) groups a model may have. Each group
+#: costs one factor table per q-chunk; per-atom B values that all differ should be rounded.
+MAX_GROUPS = 4096
+
+
+def _as_positions(positions, name: str = "positions") -> np.ndarray:
+    try:
+        p = np.asarray(positions, dtype=np.float64)
+    except (TypeError, ValueError) as exc:
+        raise InvalidInputError(f"`{name}` must be an (N, 3) array of numbers: {exc}") from None
+    if p.ndim != 2 or p.shape[1] != 3:
+        raise InvalidInputError(f"`{name}` must be an (N, 3) array, got shape {p.shape}")
+    bad = ~np.isfinite(p).all(axis=1)
+    if bad.any():
+        j = int(np.flatnonzero(bad)[0])
+        raise InvalidInputError(
+            f"`{name}` of atom {j} is not finite: {p[j].tolist()} "
+            f"({int(bad.sum())} atoms have non-finite coordinates)"
+        )
+    return np.ascontiguousarray(p)
+
+
+def as_cell(cell, name: str = "cell") -> np.ndarray:
+    """Validate a cell: a 3x3 array whose rows are the lattice vectors a, b, c (Å)."""
+    try:
+        c = np.asarray(cell, dtype=np.float64)
+    except (TypeError, ValueError) as exc:
+        raise InvalidInputError(f"`{name}` must be a 3x3 array of numbers: {exc}") from None
+    if c.shape != (3, 3):
+        raise InvalidInputError(f"`{name}` must be a 3x3 array (rows a, b, c), got shape {c.shape}")
+    if not np.isfinite(c).all():
+        raise InvalidInputError(f"`{name}` has non-finite entries: {c.tolist()}")
+    vol = float(np.linalg.det(c))
+    if abs(vol) < 1e-9:
+        raise InvalidInputError(f"`{name}` is singular (volume {vol:.3g} Å³): rows must be independent")
+    return c
+
+
+def _per_atom(value, species: np.ndarray, n: int, name: str, default: float) -> np.ndarray:
+    """Broadcast a scalar, an (N,) array or a {species: value} mapping to one value per atom."""
+    if value is None:
+        return np.full(n, default, dtype=np.float64)
+    if isinstance(value, Mapping):
+        out = np.full(n, default, dtype=np.float64)
+        labels = set(np.unique(species).tolist()) if n else set()
+        for key, v in value.items():
+            if key not in labels:
+                raise InvalidInputError(
+                    f"`{name}` names species {key!r}, which the model does not have "
+                    f"(it has {sorted(labels)})"
+                )
+            out[species == key] = float(v)
+        return out
+    a = np.asarray(value, dtype=np.float64)
+    if a.ndim == 0:
+        return np.full(n, float(a))
+    if a.shape != (n,):
+        raise InvalidInputError(f"`{name}` must be a number, a per-species mapping or an array of {n} values, got shape {a.shape}")
+    return np.ascontiguousarray(a)
+
+
+def _check_range(values: np.ndarray, name: str, lo: float, hi: float | None) -> None:
+    bad = ~np.isfinite(values) | (values < lo)
+    if hi is not None:
+        bad |= values > hi
+    if bad.any():
+        j = int(np.flatnonzero(bad)[0])
+        allowed = f"[{lo}, {hi}]" if hi is not None else f">= {lo}"
+        raise InvalidInputError(
+            f"`{name}` of atom {j} is {values[j]!r}, outside the allowed range {allowed}"
+        )
+
+
+def _species_array(species, n: int) -> np.ndarray:
+    if isinstance(species, str):
+        return np.full(n, species, dtype=object)
+    s = np.asarray(species, dtype=object)
+    if s.shape != (n,):
+        raise InvalidInputError(f"`species` must be one label or {n} labels (one per atom), got shape {s.shape}")
+    for j, lab in enumerate(s):
+        if not isinstance(lab, str) or not lab:
+            raise InvalidInputError(f"`species` of atom {j} must be a non-empty string, got {lab!r}")
+    return s
+
+
+@dataclass(frozen=True)
+class Groups:
+    """Atoms sorted into groups that share one q-dependent factor (species × Debye–Waller)."""
+
+    index: np.ndarray  #: (N,) uint32 group index of every atom
+    labels: list[str]  #: species label of every group
+    b_iso: np.ndarray  #: (G,) B (Å²) of every group (isotropic part)
+    u_aniso: np.ndarray | None  #: (G, 3, 3) Cartesian U of every group, or None
+
+    @property
+    def n_groups(self) -> int:
+        return len(self.labels)
+
+
+class Model:
+    """An atomistic model held in memory.
+
+    Parameters
+    ----------
+    positions : array_like, shape (N, 3)
+        Cartesian positions in Å, or fractional coordinates when ``fractional=True``.
+    species : str or sequence of str
+        One label for all atoms or one per atom: element symbols ('Fe'), ions ('O2-'),
+        isotopes ('D', '58Ni') or site labels ('Fe_a'); the probe decides what they mean.
+    occupancy : float, array_like (N,) or mapping, optional
+        Site occupancy in [0, 1] per atom or per species (default 1).
+    b_iso : float, array_like (N,) or mapping, optional
+        Isotropic Debye–Waller parameter B in Å² (≥ 0), per atom or per species.
+    u_iso : float, array_like (N,) or mapping, optional
+        The same as mean-square displacement U_iso in Å² (B = 8π²U). Give B or U, not both.
+    u_aniso : array_like (3, 3), (N, 3, 3) or mapping of species to (3, 3), optional
+        Anisotropic Cartesian displacement tensor U in Å² (symmetric, positive semi-definite);
+        T(q) = exp(−½ qᵀUq). Exclusive with `b_iso`/`u_iso`.
+    cell : array_like (3, 3), optional
+        Rows are the lattice vectors a, b, c in Å. Needed for fractional input and hkl grids.
+    fractional : bool
+        Treat `positions` as fractional coordinates of `cell`.
+
+    Raises
+    ------
+    InvalidInputError
+        On wrong shapes, non-finite coordinates (naming the atom), empty labels, occupancy
+        outside [0, 1], negative B or U, or a tensor that is not symmetric positive
+        semi-definite.
+    """
+
+    def __init__(self, positions, species, occupancy=None, b_iso=None, u_iso=None,
+                 u_aniso=None, cell=None, fractional: bool = False):
+        p = _as_positions(positions)
+        self.cell = None if cell is None else as_cell(cell)
+        if fractional:
+            if self.cell is None:
+                raise InvalidInputError("`fractional=True` needs a `cell` to convert the coordinates")
+            p = np.ascontiguousarray(p @ self.cell)
+        self.positions = p
+        n = len(p)
+        self.species = _species_array(species, n)
+        self.occupancy = _per_atom(occupancy, self.species, n, "occupancy", 1.0)
+        _check_range(self.occupancy, "occupancy", 0.0, 1.0)
+        if b_iso is not None and u_iso is not None:
+            raise InvalidInputError("give either `b_iso` or `u_iso`, not both (B = 8π²U)")
+        if u_aniso is not None and (b_iso is not None or u_iso is not None):
+            raise InvalidInputError("`u_aniso` replaces `b_iso`/`u_iso`: give one kind of displacement")
+        if u_iso is not None:
+            u = _per_atom(u_iso, self.species, n, "u_iso", 0.0)
+            _check_range(u, "u_iso", 0.0, None)
+            self.b_iso = 8.0 * np.pi**2 * u
+        else:
+            self.b_iso = _per_atom(b_iso, self.species, n, "b_iso", 0.0)
+            _check_range(self.b_iso, "b_iso", 0.0, None)
+        self.u_aniso = None if u_aniso is None else self._aniso(u_aniso, n)
+
+    def _aniso(self, u_aniso, n: int) -> np.ndarray:
+        if isinstance(u_aniso, Mapping):
+            out = np.zeros((n, 3, 3))
+            labels = set(self.species.tolist())
+            for key, v in u_aniso.items():
+                if key not in labels:
+                    raise InvalidInputError(f"`u_aniso` names species {key!r}, which the model does not have (it has {sorted(labels)})")
+                out[self.species == key] = np.asarray(v, dtype=np.float64)
+        else:
+            u = np.asarray(u_aniso, dtype=np.float64)
+            if u.shape == (3, 3):
+                out = np.broadcast_to(u, (n, 3, 3)).copy()
+            elif u.shape == (n, 3, 3):
+                out = u.copy()
+            else:
+                raise InvalidInputError(f"`u_aniso` must have shape (3, 3) or ({n}, 3, 3), got {u.shape}")
+        if not np.isfinite(out).all():
+            j = int(np.flatnonzero(~np.isfinite(out).reshape(n, 9).all(axis=1))[0])
+            raise InvalidInputError(f"`u_aniso` of atom {j} has non-finite entries")
+        asym = np.abs(out - out.transpose(0, 2, 1)).max(axis=(1, 2)) if n else np.zeros(0)
+        if (asym > 1e-12).any():
+            j = int(np.flatnonzero(asym > 1e-12)[0])
+            raise InvalidInputError(f"`u_aniso` of atom {j} is not symmetric: {out[j].tolist()}")
+        if n:
+            eig = np.linalg.eigvalsh(out)
+            bad = eig.min(axis=1) < -1e-12
+            if bad.any():
+                j = int(np.flatnonzero(bad)[0])
+                raise InvalidInputError(
+                    f"`u_aniso` of atom {j} is not positive semi-definite (eigenvalues {eig[j].tolist()})"
+                )
+        return out
+
+    def __len__(self) -> int:
+        return len(self.positions)
+
+    @property
+    def n_atoms(self) -> int:
+        """Number of atoms."""
+        return len(self.positions)
+
+    def species_labels(self) -> list[str]:
+        """Distinct species labels, sorted."""
+        return sorted(set(self.species.tolist()))
+
+    def groups(self) -> Groups:
+        """Sort atoms into (species, displacement) groups that share one factor f(q)·T(q).
+
+        Raises
+        ------
+        InvalidInputError
+            When there are more than ``MAX_GROUPS`` distinct combinations (for example a
+            different B for every atom): round the displacement parameters.
+        """
+        labels, sp_index = np.unique(self.species.astype(str), return_inverse=True)
+        if self.u_aniso is None:
+            key = np.column_stack([sp_index.astype(np.float64), self.b_iso])
+        else:
+            iu = np.triu_indices(3)
+            key = np.column_stack([sp_index.astype(np.float64), self.u_aniso[:, iu[0], iu[1]]])
+        uniq, index = np.unique(key, axis=0, return_inverse=True)
+        if len(uniq) > MAX_GROUPS:
+            raise InvalidInputError(
+                f"the model has {len(uniq)} distinct (species, displacement) combinations, more "
+                f"than the {MAX_GROUPS} kinemap sums separately; round the B/U values "
+                "(e.g. np.round(b_iso, 3)) or give them per species"
+            )
+        g_labels = [str(labels[int(k)]) for k in uniq[:, 0]]
+        if self.u_aniso is None:
+            b = uniq[:, 1].copy()
+            u = None
+        else:
+            b = np.zeros(len(uniq))
+            u = np.zeros((len(uniq), 3, 3))
+            iu = np.triu_indices(3)
+            u[:, iu[0], iu[1]] = uniq[:, 1:]
+            u[:, iu[1], iu[0]] = uniq[:, 1:]
+        return Groups(index=np.ascontiguousarray(index.reshape(-1), dtype=np.uint32),
+                      labels=g_labels, b_iso=b, u_aniso=u)
+
+    def iter_chunks(self, chunk_atoms: int):
+        """Yield the model in consecutive pieces of at most `chunk_atoms` atoms."""
+        for start in range(0, max(self.n_atoms, 1), chunk_atoms):
+            yield self.subset(slice(start, start + chunk_atoms))
+
+    def subset(self, index) -> "Model":
+        """A new model with the atoms selected by `index` (slice, mask or integer array)."""
+        m = Model.__new__(Model)
+        m.cell = self.cell
+        m.positions = np.ascontiguousarray(self.positions[index])
+        m.species = self.species[index]
+        m.occupancy = np.ascontiguousarray(self.occupancy[index])
+        m.b_iso = np.ascontiguousarray(self.b_iso[index])
+        m.u_aniso = None if self.u_aniso is None else self.u_aniso[index]
+        return m
+
+    def translated(self, shift) -> "Model":
+        """A copy shifted by the Cartesian vector `shift` (Å)."""
+        m = self.subset(slice(None))
+        m.positions = m.positions + np.asarray(shift, dtype=np.float64)
+        return m
+
+    def describe(self) -> dict:
+        """A short summary for output files and the command line."""
+        labels, counts = np.unique(self.species.astype(str), return_counts=True)
+        return {
+            "n_atoms": int(self.n_atoms),
+            "species": {str(k): int(v) for k, v in zip(labels, counts)},
+            "cell": None if self.cell is None else self.cell.tolist(),
+        }
+
+    def __repr__(self) -> str:
+        d = self.describe()
+        return f"Model(n_atoms={d['n_atoms']}, species={d['species']})"
+
+
+def fractional_to_cartesian(fractional, cell) -> np.ndarray:
+    """Convert fractional coordinates (N, 3) to Cartesian Å with the cell rows a, b, c."""
+    return _as_positions(fractional, "fractional") @ as_cell(cell)
+
+
+def reciprocal_basis(cell) -> np.ndarray:
+    """Rows a*, b*, c* with a*·a = 1 (no 2π), in Å⁻¹."""
+    return np.linalg.inv(as_cell(cell)).T
+
+
+__all__ = ["Model", "Groups", "fractional_to_cartesian", "reciprocal_basis", "as_cell", "MAX_GROUPS"]
+_ = Sequence  # typing only

@@ -1,0 +1,31 @@
+//! # kinemap-core
+//!
+//! Exact kinematic structure-factor sums over atoms, in parallel on the CPU.
+//!
+//! Conventions (shared with the Python package): lengths in Å, Cartesian positions, q in Å⁻¹,
+//! amplitude `A(q) = Σ_j o_j f_j(q) T_j(q) exp(+i q·r_j)`. The core does not know about
+//! species or probes: the caller sorts atoms into *groups* that share one q-dependent factor
+//! `F_g(q) = f_g(q) T_g(q)` and passes the table `F[g, m]`; per-atom weights that do not
+//! depend on q (occupancies) go straight into the sums. The kernels are
+//!
+//! * [`point_amplitudes`]: arbitrary q-points, one vectorised sincos per atom–q pair;
+//! * [`grid_amplitudes`]: rows of equally spaced q-points (lines, planes, volumes in any
+//!   orientation) by phase stepping, one complex multiply per atom–q pair.
+//!
+//! Both parallelise over q-points with rayon, so every amplitude is summed by one thread in a
+//! fixed order and results are identical for any thread count. Memory is O(atoms + outputs);
+//! no atoms × q matrix is ever formed.
+#![deny(missing_docs)]
+
+pub mod atoms;
+pub mod error;
+pub mod grid;
+pub mod point;
+pub mod pool;
+pub mod sincos;
+
+pub use atoms::AtomSet;
+pub use error::{Error, Result};
+pub use grid::grid_amplitudes;
+pub use num_complex::Complex64;
+pub use point::point_amplitudes;

@@ -1,0 +1,114 @@
+//! Python bindings of kinemap-core: numpy in, numpy out, the GIL released during every
+//! kernel call. No physics lives here; see `python/kinemap` for the public API.
+#![deny(elided_lifetimes_in_paths)]
+
+mod arrays;
+mod errors;
+
+use errors::CoreErr;
+use numpy::{Complex64, IntoPyArray, PyArray1, PyReadonlyArray1, PyReadonlyArray2};
+use pyo3::prelude::*;
+
+/// Atoms prepared for the kernels: grouped by scattering factor, structure of arrays.
+#[pyclass(name = "AtomSet", module = "kinemap._core", frozen)]
+pub struct PyAtomSet {
+    inner: kinemap_core::AtomSet,
+}
+
+#[pymethods]
+impl PyAtomSet {
+    /// AtomSet(positions, weights, groups, n_groups): positions (N, 3) float64 in Å,
+    /// weights (N,) float64 (occupancies), groups (N,) uint32 < n_groups.
+    #[new]
+    fn new<'py>(
+        py: Python<'py>,
+        positions: PyReadonlyArray2<'py, f64>,
+        weights: PyReadonlyArray1<'py, f64>,
+        groups: PyReadonlyArray1<'py, u32>,
+        n_groups: usize,
+    ) -> PyResult<Self> {
+        let pos = arrays::vectors(&positions, "positions")?;
+        let w = arrays::slice1(&weights, "weights", Some(pos.len()))?;
+        let g = arrays::slice1(&groups, "groups", Some(pos.len()))?;
+        let inner = py
+            .detach(|| kinemap_core::AtomSet::new(pos, w, g, n_groups))
+            .map_err(CoreErr)?;
+        Ok(PyAtomSet { inner })
+    }
+
+    /// Number of atoms (without padding).
+    #[getter]
+    fn n_atoms(&self) -> usize {
+        self.inner.n_atoms()
+    }
+
+    /// Number of groups.
+    #[getter]
+    fn n_groups(&self) -> usize {
+        self.inner.n_groups()
+    }
+}
+
+/// point_amplitudes(atoms, q, factors, *, threads=None) -> complex128 (M,):
+/// A(q_m) = Σ_g factors[g, m] Σ_{j in g} w_j exp(i q_m·r_j) at arbitrary q-points (M, 3).
+#[pyfunction(name = "point_amplitudes")]
+#[pyo3(signature = (atoms, q, factors, *, threads=None))]
+fn point_amplitudes_py<'py>(
+    py: Python<'py>,
+    atoms: &Bound<'py, PyAtomSet>,
+    q: PyReadonlyArray2<'py, f64>,
+    factors: PyReadonlyArray2<'py, Complex64>,
+    threads: Option<usize>,
+) -> PyResult<Bound<'py, PyArray1<Complex64>>> {
+    let set = &atoms.get().inner;
+    let qv = arrays::vectors(&q, "q")?;
+    let f = arrays::slice2(&factors, "factors", (set.n_groups(), qv.len()))?;
+    let out = py
+        .detach(|| kinemap_core::point_amplitudes(set, qv, f, threads))
+        .map_err(CoreErr)?;
+    Ok(out.into_pyarray(py))
+}
+
+/// grid_amplitudes(atoms, rows, step, n, factors, *, threads=None) -> complex128 (R*n,):
+/// amplitudes at rows[r] + k*step for k < n, row-major, by phase stepping.
+#[pyfunction(name = "grid_amplitudes")]
+#[pyo3(signature = (atoms, rows, step, n, factors, *, threads=None))]
+fn grid_amplitudes_py<'py>(
+    py: Python<'py>,
+    atoms: &Bound<'py, PyAtomSet>,
+    rows: PyReadonlyArray2<'py, f64>,
+    step: PyReadonlyArray1<'py, f64>,
+    n: usize,
+    factors: PyReadonlyArray2<'py, Complex64>,
+    threads: Option<usize>,
+) -> PyResult<Bound<'py, PyArray1<Complex64>>> {
+    let set = &atoms.get().inner;
+    let rv = arrays::vectors(&rows, "rows")?;
+    let st = arrays::slice1(&step, "step", Some(3))?;
+    let step3 = [st[0], st[1], st[2]];
+    let m = rv.len() * n;
+    let f = arrays::slice2(&factors, "factors", (set.n_groups(), m))?;
+    let out = py
+        .detach(|| kinemap_core::grid_amplitudes(set, rv, step3, n, f, threads))
+        .map_err(CoreErr)?;
+    Ok(out.into_pyarray(py))
+}
+
+/// The compiled core of kinemap.
+#[pymodule]
+mod _core {
+    #[pymodule_export]
+    use super::grid_amplitudes_py;
+    #[pymodule_export]
+    use super::point_amplitudes_py;
+    #[pymodule_export]
+    use super::PyAtomSet;
+
+    use pyo3::prelude::*;
+
+    #[pymodule_init]
+    fn init(m: &Bound<'_, PyModule>) -> PyResult<()> {
+        m.add("__version__", env!("CARGO_PKG_VERSION"))?;
+        Ok(())
+    }
+}
