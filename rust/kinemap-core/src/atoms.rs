@@ -61,7 +61,9 @@ impl AtomSet {
                 )));
             }
             if !w.is_finite() {
-                return Err(Error::NonFinite(format!("weight of atom {j} is not finite: {w}")));
+                return Err(Error::NonFinite(format!(
+                    "weight of atom {j} is not finite: {w}"
+                )));
             }
             let gi = g as usize;
             if gi >= n_groups {
@@ -78,8 +80,12 @@ impl AtomSet {
             offsets.push(offsets.last().copied().unwrap_or(0) + padded);
         }
         let total = offsets[n_groups];
-        let (mut x, mut y, mut z, mut wv) =
-            (vec![0.0; total], vec![0.0; total], vec![0.0; total], vec![0.0; total]);
+        let (mut x, mut y, mut z, mut wv) = (
+            vec![0.0; total],
+            vec![0.0; total],
+            vec![0.0; total],
+            vec![0.0; total],
+        );
         let mut next: Vec<usize> = offsets[..n_groups].to_vec();
         for (p, (&w, &g)) in positions.iter().zip(weights.iter().zip(groups)) {
             let slot = &mut next[g as usize];
@@ -89,7 +95,14 @@ impl AtomSet {
             wv[*slot] = w;
             *slot += 1;
         }
-        Ok(AtomSet { x, y, z, w: wv, offsets, n_atoms: n })
+        Ok(AtomSet {
+            x,
+            y,
+            z,
+            w: wv,
+            offsets,
+            n_atoms: n,
+        })
     }
 
     /// Number of real (unpadded) atoms.
@@ -129,7 +142,10 @@ mod tests {
         let e = AtomSet::new(&pos, &[1.0, 1.0], &[0, 0], 1).unwrap_err();
         assert!(e.to_string().contains("atom 1"), "{e}");
         let e = AtomSet::new(&pos[..1], &[1.0], &[3], 2).unwrap_err();
-        assert!(e.to_string().contains("atom 0") && e.to_string().contains("2 groups"), "{e}");
+        assert!(
+            e.to_string().contains("atom 0") && e.to_string().contains("2 groups"),
+            "{e}"
+        );
         let e = AtomSet::new(&pos, &[1.0], &[0, 0], 1).unwrap_err();
         assert!(e.to_string().contains("weights"), "{e}");
     }

@@ -33,7 +33,9 @@ pub fn grid_amplitudes(
     threads: Option<usize>,
 ) -> Result<Vec<Complex64>> {
     if n == 0 {
-        return Err(Error::Range("points per row must be at least 1, got 0".into()));
+        return Err(Error::Range(
+            "points per row must be at least 1, got 0".into(),
+        ));
     }
     if !(step[0].is_finite() && step[1].is_finite() && step[2].is_finite()) {
         return Err(Error::NonFinite(format!(
@@ -41,7 +43,10 @@ pub fn grid_amplitudes(
             step[0], step[1], step[2]
         )));
     }
-    let m = rows.len().checked_mul(n).ok_or_else(|| Error::Range("grid too large".into()))?;
+    let m = rows
+        .len()
+        .checked_mul(n)
+        .ok_or_else(|| Error::Range("grid too large".into()))?;
     check_vectors(rows, "grid row")?;
     check_factors(factors, atoms.n_groups(), m)?;
     let mut out = vec![Complex64::new(0.0, 0.0); m];
@@ -140,26 +145,41 @@ fn segment(
 }
 
 /// The hot loop: for each step, add the current phases of all interleaved atom vectors to the
-/// accumulators, then advance every phase by its step factor.
-#[inline(always)]
+/// accumulators, then advance every phase by its step factor. The phases live in local arrays
+/// (registers) for the whole run and are written back once.
+#[inline(never)]
 fn stepping_run(
     acc_re: &mut [[f64; LANES]],
     acc_im: &mut [[f64; LANES]],
-    p_re: &mut [[f64; LANES]; VECS],
-    p_im: &mut [[f64; LANES]; VECS],
+    p_re_io: &mut [[f64; LANES]; VECS],
+    p_im_io: &mut [[f64; LANES]; VECS],
     e_re: &[[f64; LANES]; VECS],
     e_im: &[[f64; LANES]; VECS],
 ) {
+    let mut p_re = *p_re_io;
+    let mut p_im = *p_im_io;
+    let er = *e_re;
+    let ei = *e_im;
     for (ar, ai) in acc_re.iter_mut().zip(acc_im.iter_mut()) {
+        let mut sr = *ar;
+        let mut si = *ai;
         for v in 0..VECS {
             for l in 0..LANES {
-                ar[l] += p_re[v][l];
-                ai[l] += p_im[v][l];
-                let re = mul_add(p_re[v][l], e_re[v][l], -(p_im[v][l] * e_im[v][l]));
-                let im = mul_add(p_re[v][l], e_im[v][l], p_im[v][l] * e_re[v][l]);
+                sr[l] += p_re[v][l];
+                si[l] += p_im[v][l];
+            }
+        }
+        *ar = sr;
+        *ai = si;
+        for v in 0..VECS {
+            for l in 0..LANES {
+                let re = mul_add(p_re[v][l], er[v][l], -(p_im[v][l] * ei[v][l]));
+                let im = mul_add(p_re[v][l], ei[v][l], p_im[v][l] * er[v][l]);
                 p_re[v][l] = re;
                 p_im[v][l] = im;
             }
         }
     }
+    *p_re_io = p_re;
+    *p_im_io = p_im;
 }

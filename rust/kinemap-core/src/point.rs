@@ -62,10 +62,19 @@ pub fn point_amplitudes(
     let m = q.len();
     let mut out = vec![Complex64::new(0.0, 0.0); m];
     crate::pool::run(threads, || {
-        out.par_chunks_mut(Q_BLOCK).enumerate().for_each(|(b, out_block)| {
-            let q0 = b * Q_BLOCK;
-            point_block(atoms, &q[q0..q0 + out_block.len()], factors, m, q0, out_block);
-        });
+        out.par_chunks_mut(Q_BLOCK)
+            .enumerate()
+            .for_each(|(b, out_block)| {
+                let q0 = b * Q_BLOCK;
+                point_block(
+                    atoms,
+                    &q[q0..q0 + out_block.len()],
+                    factors,
+                    m,
+                    q0,
+                    out_block,
+                );
+            });
     })?;
     Ok(out)
 }
@@ -81,7 +90,6 @@ fn point_block(
     let nq = q.len();
     let mut acc_re = [[0.0f64; LANES]; Q_BLOCK];
     let mut acc_im = [[0.0f64; LANES]; Q_BLOCK];
-    let (mut ph, mut s, mut c) = ([0.0; LANES], [0.0; LANES], [0.0; LANES]);
     for g in 0..atoms.n_groups() {
         let range = atoms.range(g);
         if range.is_empty() {
@@ -100,23 +108,7 @@ fn point_block(
                 &atoms.w[tile_start..tile_end],
             );
             for (qi, qv) in q.iter().enumerate() {
-                let (qx, qy, qz) = (qv[0], qv[1], qv[2]);
-                let (ar, ai) = (&mut acc_re[qi], &mut acc_im[qi]);
-                for (((x, y), z), w) in xs
-                    .chunks_exact(LANES)
-                    .zip(ys.chunks_exact(LANES))
-                    .zip(zs.chunks_exact(LANES))
-                    .zip(ws.chunks_exact(LANES))
-                {
-                    for l in 0..LANES {
-                        ph[l] = mul_add(qz, z[l], mul_add(qy, y[l], qx * x[l]));
-                    }
-                    sincos_lanes(&ph, &mut s, &mut c);
-                    for l in 0..LANES {
-                        ar[l] = mul_add(w[l], c[l], ar[l]);
-                        ai[l] = mul_add(w[l], s[l], ai[l]);
-                    }
-                }
+                tile_sum(xs, ys, zs, ws, qv, &mut acc_re[qi], &mut acc_im[qi]);
             }
             tile_start = tile_end;
         }
@@ -125,6 +117,40 @@ fn point_block(
             out[qi] += factors[g * m + q_first + qi] * sum;
         }
     }
+}
+
+/// Add `w exp(i q·r)` of one tile of atoms to the lane accumulators of one q-point. The
+/// accumulators are held in locals (registers) for the whole tile.
+#[inline(never)]
+fn tile_sum(
+    xs: &[f64],
+    ys: &[f64],
+    zs: &[f64],
+    ws: &[f64],
+    qv: &[f64; 3],
+    acc_re: &mut [f64; LANES],
+    acc_im: &mut [f64; LANES],
+) {
+    let (qx, qy, qz) = (qv[0], qv[1], qv[2]);
+    let (mut ar, mut ai) = (*acc_re, *acc_im);
+    let (mut ph, mut s, mut c) = ([0.0; LANES], [0.0; LANES], [0.0; LANES]);
+    for (((x, y), z), w) in xs
+        .chunks_exact(LANES)
+        .zip(ys.chunks_exact(LANES))
+        .zip(zs.chunks_exact(LANES))
+        .zip(ws.chunks_exact(LANES))
+    {
+        for l in 0..LANES {
+            ph[l] = mul_add(qz, z[l], mul_add(qy, y[l], qx * x[l]));
+        }
+        sincos_lanes(&ph, &mut s, &mut c);
+        for l in 0..LANES {
+            ar[l] = mul_add(w[l], c[l], ar[l]);
+            ai[l] = mul_add(w[l], s[l], ai[l]);
+        }
+    }
+    *acc_re = ar;
+    *acc_im = ai;
 }
 
 /// Sum of the lanes in a fixed pairwise order.

@@ -23,7 +23,9 @@ pub fn run<R: Send>(threads: Option<usize>, f: impl FnOnce() -> R + Send) -> Res
                             .num_threads(n)
                             .thread_name(|i| format!("kinemap-{i}"))
                             .build()
-                            .map_err(|e| Error::Threads(format!("cannot start {n} threads: {e}")))?;
+                            .map_err(|e| {
+                                Error::Threads(format!("cannot start {n} threads: {e}"))
+                            })?;
                         let p = Arc::new(p);
                         map.insert(n, Arc::clone(&p));
                         p

@@ -59,9 +59,17 @@ pub fn sincos(x: f64) -> (f64, f64) {
     let k = t - ROUNDER;
     let r = mul_add(-k, PIO2_3, mul_add(-k, PIO2_2, mul_add(-k, PIO2_1, x)));
     let z = r * r;
-    let ps = mul_add(z, mul_add(z, mul_add(z, mul_add(z, mul_add(z, S6, S5), S4), S3), S2), S1);
+    let ps = mul_add(
+        z,
+        mul_add(z, mul_add(z, mul_add(z, mul_add(z, S6, S5), S4), S3), S2),
+        S1,
+    );
     let s = mul_add(r * z, ps, r);
-    let pc = mul_add(z, mul_add(z, mul_add(z, mul_add(z, mul_add(z, C6, C5), C4), C3), C2), C1);
+    let pc = mul_add(
+        z,
+        mul_add(z, mul_add(z, mul_add(z, mul_add(z, C6, C5), C4), C3), C2),
+        C1,
+    );
     let c = mul_add(z * z, pc, mul_add(-0.5, z, 1.0));
     // Quadrant n = k mod 4: (sin, cos) = (s, c), (c, −s), (−s, −c), (−c, s).
     let swap = (quadrant & 1).wrapping_neg(); // all ones when n is odd
@@ -71,7 +79,10 @@ pub fn sincos(x: f64) -> (f64, f64) {
     let cos_b = (cb & !swap) | (sb & swap);
     let sin_sign = (quadrant & 2) << 62;
     let cos_sign = (quadrant.wrapping_add(1) & 2) << 62;
-    (f64::from_bits(sin_b ^ sin_sign), f64::from_bits(cos_b ^ cos_sign))
+    (
+        f64::from_bits(sin_b ^ sin_sign),
+        f64::from_bits(cos_b ^ cos_sign),
+    )
 }
 
 /// Sine and cosine of [`LANES`] values at once (written so that it becomes vector code).
@@ -103,8 +114,14 @@ mod tests {
         while x < 2.0e5 {
             let (s, c) = sincos(x);
             let (s0, c0) = x.sin_cos();
-            assert!((s - s0).abs() <= 4.0 * f64::EPSILON, "sin({x}) = {s}, libm {s0}");
-            assert!((c - c0).abs() <= 4.0 * f64::EPSILON, "cos({x}) = {c}, libm {c0}");
+            assert!(
+                (s - s0).abs() <= 4.0 * f64::EPSILON,
+                "sin({x}) = {s}, libm {s0}"
+            );
+            assert!(
+                (c - c0).abs() <= 4.0 * f64::EPSILON,
+                "cos({x}) = {c}, libm {c0}"
+            );
             worst = worst.max(ulp_err(s, s0).min(1e9));
             x += 0.7391;
         }

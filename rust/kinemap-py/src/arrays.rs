@@ -33,7 +33,10 @@ pub fn slice1<'a, T: Element>(
         .map_err(|_| invalid(format!("`{name}` must be C-contiguous")))?;
     if let Some(n) = len {
         if s.len() != n {
-            return Err(invalid(format!("`{name}` must have length {n}, got {}", s.len())));
+            return Err(invalid(format!(
+                "`{name}` must have length {n}, got {}",
+                s.len()
+            )));
         }
     }
     Ok(s)
