@@ -211,3 +211,82 @@ def test_xray_metadata_names_tables():
 
 def test_probe_base_is_exported():
     assert issubclass(XRayProbe, Probe) and issubclass(UnitProbe, Probe)
+
+
+# --------------------------------------------------------------------------------------
+# X-ray anomalous terms: Henke, Gullikson & Davis (1993) via periodictable
+# --------------------------------------------------------------------------------------
+def test_xray_wavelength_energy_conversion():
+    # Cu Kα1 λ = 1.540593 Å (REFERENCES.md) <-> E = hc/λ, hc = 12.398419843 keV·Å (CODATA 2018)
+    p = XRayProbe(wavelength=1.540593)
+    assert p.energy_kev == pytest.approx(12.398419843320026 / 1.540593, rel=1e-15)
+    assert p.energy_kev == pytest.approx(8.048, abs=1e-3)  # Cu Kα1 ≈ 8.048 keV (memory)
+    m = p.metadata()
+    assert m["wavelength_angstrom"] == pytest.approx(1.540593)
+    assert "Henke" in m["anomalous_source"] and "f1(E) - Z" in m["anomalous_convention"]
+
+
+def test_xray_anomalous_iron_at_cu_kalpha():
+    s = np.array([0.0, 0.25, 0.5])
+    f0 = get_probe("xray").scattering_factors(["Fe"], s)[0]
+    f = XRayProbe(wavelength=1.540593).scattering_factors(["Fe"], s)[0]
+    fp, fpp = f.real - f0.real, f.imag
+    # f′, f″ do not depend on s (dispersion is a core-electron effect)
+    assert np.ptp(fp) < 1e-12 and np.ptp(fpp) < 1e-12
+    # Fe at Cu Kα (8.05 keV, above the Fe K edge at 7.112 keV): Henke tables give
+    # f′ ≈ -1.13, f″ ≈ 3.20 (memory; Cromer-Liberman values in ITC Vol. C Table 4.2.6.8 are
+    # about -1.18, 3.20; the tables differ by a few hundredths)
+    assert fp[0] == pytest.approx(-1.13, abs=0.08)
+    assert fpp[0] == pytest.approx(3.20, abs=0.05)
+
+
+def test_xray_anomalous_forward_factor_is_henke_total():
+    import periodictable
+
+    e = 17.4793  # Mo Kα1 energy, keV (memory)
+    p = XRayProbe(energy_kev=e)
+    for sym in ["C", "O", "Si", "Fe", "Cu", "Mo", "Pb", "U"]:
+        f = p.scattering_factors([sym], [0.0])[0, 0]
+        el = getattr(periodictable, sym)
+        f1, f2 = el.xray.scattering_factors(energy=e)  # Henke table (periodictable)
+        z = el.number
+        # f(0, E) = f0(0) + f1 - Z = f1 + (f0(0) - Z); WK f0(0) is within 0.05 of Z
+        assert f.real == pytest.approx(f1, abs=0.05)
+        assert f.imag == pytest.approx(f2, rel=1e-12)
+        # far above the K edges of C and O, f = f0 + f′ stays within 0.02 of Z
+        # (Henke et al. 1993: f1 -> Z* = Z - (Z/82.5)^2.37 at high energy)
+        if z <= 8:
+            assert abs(f.real - z) < 0.02 and f.imag < 0.01
+
+
+def test_xray_ions_get_neutral_atom_anomalous_terms():
+    p = XRayProbe(energy_kev=8.0)
+    f = p.scattering_factors(["Fe3+", "Fe"], [0.3])[:, 0]
+    g = get_probe("xray").scattering_factors(["Fe3+", "Fe"], [0.3])[:, 0]
+    assert (f - g)[0] == pytest.approx((f - g)[1], abs=1e-12)
+
+
+@pytest.mark.parametrize("kwargs, label, match", [
+    ({"energy_kev": 60.0}, "Fe", r"60 keV.*outside the Henke.*Fe.*30 keV"),
+    ({"energy_kev": 0.01}, "O", r"0.01 keV.*outside the Henke.*O"),
+    ({"energy_kev": 8.0}, "Pu", r"no Henke.*Pu.*Z = 1-92"),
+])
+def test_xray_energy_outside_table_raises(kwargs, label, match):
+    p = XRayProbe(**kwargs)
+    with pytest.raises(InvalidInputError, match=match):
+        p.check_labels([label])
+    # without anomalous terms the same energy is only recorded
+    q = XRayProbe(anomalous=False, **kwargs)
+    q.check_labels([label])
+    assert q.metadata()["energy_kev"] == kwargs["energy_kev"]
+
+
+@pytest.mark.parametrize("kwargs, match", [
+    ({"energy_kev": -1.0}, "energy_kev"),
+    ({"energy_kev": "hot"}, "energy_kev"),
+    ({"wavelength": 0.0}, "wavelength"),
+    ({"energy_kev": 8.0, "wavelength": 1.5}, "not both"),
+])
+def test_xray_bad_energy_arguments(kwargs, match):
+    with pytest.raises(InvalidInputError, match=match):
+        XRayProbe(**kwargs)

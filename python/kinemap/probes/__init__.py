@@ -30,11 +30,16 @@ from typing import Any
 from ..errors import InvalidInputError
 from ._species import Species, parse_species
 from .base import Probe, UnitProbe
+from .custom import CustomProbe
+from .electron import ElectronProbe
+from .neutron import NeutronProbe
 from .xray import XRayProbe
 
 _BY_NAME: dict[str, type[Probe]] = {
     "xray": XRayProbe,
     "x-ray": XRayProbe,
+    "neutron": NeutronProbe,
+    "electron": ElectronProbe,
     "unit": UnitProbe,
 }
 
@@ -89,6 +94,9 @@ __all__ = [
     "Probe",
     "get_probe",
     "XRayProbe",
+    "NeutronProbe",
+    "ElectronProbe",
+    "CustomProbe",
     "UnitProbe",
     "Species",
     "parse_species",
