@@ -20,8 +20,9 @@ class CustomProbe(Probe):
     * ``gaussians={label: (a, b, c)}``: f(s) = c + Σ_i a_i exp(−b_i s²), with b_i in Å² and
       s = sinθ/λ in Å⁻¹ (the Waasmaier–Kirfel / Peng form; ``c`` may be left out, ``(a, b)``);
     * ``grids={label: (s_values, f_values)}``: f sampled at increasing s_values (Å⁻¹) and
-      interpolated (``interpolation='linear'`` or ``'cubic'``, a natural cubic spline on the
-      real and imaginary parts); s outside the sampled range raises;
+      interpolated (``interpolation='linear'`` or ``'cubic'``: a cubic spline with f′(0) = 0
+      when the grid starts at s = 0, as f is even in s, and not-a-knot ends otherwise);
+      s outside the sampled range raises;
     * ``constants={label: value}``: s-independent, e.g. a neutron length in fm.
 
     Values may be complex. Labels not found in these tables go to `fallback`, a probe whose
@@ -138,7 +139,10 @@ class CustomProbe(Probe):
         if self.interpolation == "cubic":
             from scipy.interpolate import CubicSpline
 
-            spline = CubicSpline(s_arr, f_arr, bc_type="natural")
+            # f(s) is even in s, so f'(0) = 0 when the grid starts at s = 0;
+            # otherwise (and at the far end) the not-a-knot condition
+            bc = ((1, 0.0), "not-a-knot") if s_arr[0] == 0.0 else "not-a-knot"
+            spline = CubicSpline(s_arr, f_arr, bc_type=bc)
             return s_arr, spline
         return s_arr, f_arr
 
@@ -269,6 +273,6 @@ def _gaussian_entry(label: str, entry: Any) -> tuple[np.ndarray, np.ndarray, com
         i = int(np.argmin(b_arr))
         if b_arr[i] < -1.0:
             raise InvalidInputError(
-                f"{where}: b[{i}] = {b_arr[i]!r} Å² is negative; f(s) would grow without bound"
+                f"{where}: b[{i}] = {float(b_arr[i])!r} Å² is negative; f(s) would grow without bound"
             )
     return a_arr, b_arr, _complex_scalar(c, f"{where} c")
