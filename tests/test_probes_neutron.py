@@ -93,10 +93,11 @@ def test_absorption_off_gives_real_lengths():
 
 def test_user_lengths_override_table_and_are_recorded():
     # Sears (1992) vanadium, -0.3824 fm (REFERENCES), and a site label with its own length
-    p = NeutronProbe(lengths={"V": -0.3824, "Vac": 0.0}, aliases={"V_a": "V"})
-    f = p.scattering_factors(["V", "Vac", "V_a"], [0.0, 0.5])
+    p = NeutronProbe(lengths={"V": -0.3824, "Vac": 0.0}, aliases={"V_a": "V", "Ti_a": "Ti"})
+    f = p.scattering_factors(["V", "Vac", "V_a", "Ti_a"], [0.0, 0.5])
     assert f[0, 0] == -0.3824 and f[1, 1] == 0.0
-    assert f[2, 0].real == pytest.approx(-0.443, abs=0.001)  # alias goes to the table
+    assert f[2, 0] == -0.3824  # an alias of V gets the user's V length
+    assert f[3, 0].real == pytest.approx(-3.37, abs=0.001)  # Ti still from the table (Rauch)
     assert "V=(-0.3824" in p.metadata()["user_lengths_fm"]
     with pytest.raises(InvalidInputError, match=r"`lengths`\['V'\]"):
         NeutronProbe(lengths={"V": "small"})
@@ -143,7 +144,11 @@ def test_metadata_and_cautions():
     assert "periodictable" in m["table_library"]
     assert "b' + i b''" in m["sign_convention"]
     assert all(isinstance(v, (str, int, float)) for v in m.values())
-    assert any("magnetic" in c for c in p.cautions())
+    assert "magnetic" in m["scattering"]
+    p.check_labels(["Fe", "O", "D"])
+    assert p.cautions() == []  # no resonant nuclei among the labels
+    p.check_labels(["Sm"])
+    assert "Sm" in p.cautions()[0]
 
 
 @pytest.mark.parametrize("kwargs", [{"wavelength": -1.0}, {"wavelength": "long"}, {"lengths": [1, 2]}])

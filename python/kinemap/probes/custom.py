@@ -137,7 +137,13 @@ class CustomProbe(Probe):
         if np.any(np.diff(s_arr) <= 0) or s_arr[0] < 0:
             raise InvalidInputError(f"{where}: s_values must be >= 0 and strictly increasing")
         if self.interpolation == "cubic":
-            from scipy.interpolate import CubicSpline
+            try:
+                from scipy.interpolate import CubicSpline
+            except ImportError:  # pragma: no cover - scipy is installed with the tests
+                raise InvalidInputError(
+                    f"{where}: interpolation='cubic' needs scipy (pip install scipy); "
+                    "use interpolation='linear' without it"
+                ) from None
 
             # f(s) is even in s, so f'(0) = 0 when the grid starts at s = 0;
             # otherwise (and at the far end) the not-a-knot condition

@@ -78,9 +78,10 @@ class NeutronProbe(Probe):
     absorption : bool, optional
         Include the imaginary part of b_c (default True). False keeps only Re b_c.
     lengths : dict of str to complex, optional
-        User scattering lengths in fm that replace the table for given labels (species or
-        alias labels), written as the tables print them, b′ − i b″ (e.g. ``{'V': -0.3824}``
-        to use the Sears 1992 value for vanadium). They are recorded in the metadata.
+        User scattering lengths in fm that replace the table for given labels, written as the
+        tables print them, b′ − i b″ (e.g. ``{'V': -0.3824}`` to use the Sears 1992 value for
+        vanadium). A key applies to that label and to aliases that point to it; a key need
+        not be a species (``{'vacancy': 0.0}``). They are recorded in the metadata.
     aliases : dict of str to str, optional
         User labels mapped to species labels, e.g. ``{'Ni_a': '58Ni', 'Dw': 'D'}``.
 
@@ -144,8 +145,17 @@ class NeutronProbe(Probe):
         return f"NeutronProbe(wavelength={self.wavelength!r}, absorption={self.absorption})"
 
     # -- species -------------------------------------------------------------------------
-    def _resolve_checked(self, label: str) -> Species:
+    def _user_key(self, label: str) -> str | None:
+        """Key of `lengths` that applies to `label` (the label itself, else its alias target)."""
         if label in self.lengths:
+            return label
+        target = self.aliases.get(label)
+        if target is not None and target in self.lengths:
+            return target
+        return None
+
+    def _resolve_checked(self, label: str) -> Species:
+        if self._user_key(label) is not None:
             # a user length needs no table entry; the label need not be a species at all
             return Species(label, label, 0)
         return super()._resolve_checked(label)
@@ -201,8 +211,9 @@ class NeutronProbe(Probe):
         return b
 
     def _factors(self, sp: Species, s: np.ndarray, s2: np.ndarray) -> np.ndarray:
-        if sp.label in self.lengths:
-            b = self.lengths[sp.label]
+        key = self._user_key(sp.label)
+        if key is not None:
+            b = self.lengths[key]
         else:
             b = self.table_length(sp)
         if not self.absorption:
@@ -220,6 +231,7 @@ class NeutronProbe(Probe):
                 "for amplitudes summed with exp(+i q.r)"
             ),
             "absorption": "included (imaginary part)" if self.absorption else "excluded (real part only)",
+            "scattering": "nuclear only; magnetic neutron scattering is not included",
         }
         if self.wavelength is not None:
             meta["wavelength_angstrom"] = self.wavelength
@@ -231,7 +243,12 @@ class NeutronProbe(Probe):
         return meta
 
     def cautions(self) -> list[str]:
-        out = ["Nuclear scattering only: magnetic neutron scattering is not included."]
+        """Cautions for the species checked so far: energy-dependent (resonant) nuclei.
+
+        Call after :meth:`check_labels` or :meth:`scattering_factors`; the list names the
+        resonant nuclides among the labels seen (Sm, Eu, Gd, Cd and some isotopes).
+        """
+        out: list[str] = []
         if self._resonant_used:
             names = ", ".join(sorted(self._resonant_used))
             if self.wavelength is None:
