@@ -11,15 +11,18 @@
 //! (phases q·r of models up to a few 10⁵ Å across at q ≤ 10 Å⁻¹). Beyond that the reduction
 //! loses bits gradually; the phase q·r itself already carries a rounding error of
 //! |q·r|·2⁻⁵³, which is of the same size.
+#![allow(clippy::excessive_precision)]
 
 /// Number of lanes the kernels process together (one AVX-512 register of f64).
 pub const LANES: usize = 8;
 
+// The constants are fdlibm's, written with the digits it prints (they round to the intended
+// doubles); clippy's excessive_precision is allowed for that reason.
 // fdlibm's split of π/2 into 33-bit parts, so k·PIO2_1 and k·PIO2_2 are exact for k < 2^20.
 const PIO2_1: f64 = 1.570_796_326_734_125_614_17e+00;
 const PIO2_2: f64 = 6.077_100_506_303_965_976_60e-11;
 const PIO2_3: f64 = 2.022_266_248_711_166_455_80e-21;
-const INV_PIO2: f64 = 6.366_197_723_675_813_824_33e-01;
+const INV_PIO2: f64 = std::f64::consts::FRAC_2_PI;
 // 1.5·2^52: adding and subtracting it rounds to the nearest integer and leaves that integer
 // in the low mantissa bits.
 const ROUNDER: f64 = 6_755_399_441_055_744.0;
