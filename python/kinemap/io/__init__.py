@@ -1,0 +1,180 @@
+"""Model files: streaming readers, an H5MD writer and a converter.
+
+=================  =====================================  ==================================
+format             files                                  reader
+=================  =====================================  ==================================
+``"h5md"``         H5MD 1.1 (``/h5md``, ``/particles``)   :func:`kinemap.io.h5md.open_h5md`
+``"hdf5"``         the plain layout (``/positions``,      :func:`kinemap.io.plain.open_plain`
+                   ``/species``, ...)
+``"extxyz"``       ``.xyz``, ``.extxyz``                  :func:`kinemap.io.text.open_extxyz`
+``"lammps-dump"``  ``.lammpstrj``, ``.dump``              :func:`kinemap.io.text.open_lammps_dump`
+``"ase"``          CIF, POSCAR, PDB, ... (needs ASE)      :func:`kinemap.io.ase_files.open_with_ase`
+=================  =====================================  ==================================
+
+:func:`open_model` picks the reader from the file name and contents and returns an *atom
+source*: a lazy handle on one frame that :func:`kinemap.scatter` streams in bounded chunks.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from ..errors import InvalidInputError, ModelFileError
+from ._base import AtomSource, MemorySource, length_scale, parse_species_map
+from .convert import convert, select_frames
+from .h5md import H5MDSource, H5MDWriter, open_h5md, write_h5md
+from .plain import PLAIN_PATHS, PlainSource, open_plain
+from .text import TextSource, open_extxyz, open_lammps_dump
+
+FORMATS = ("h5md", "hdf5", "extxyz", "lammps-dump", "ase")
+_HDF5_SIGNATURE = b"\x89HDF\r\n\x1a\n"
+_ASE_SUFFIXES = {".cif", ".vasp", ".pdb", ".xsf", ".traj", ".res", ".gen", ".cell", ".in", ".poscar", ".xyzv"}
+
+
+def detect_format(path) -> str:
+    """The format of a model file, from its name and first bytes (see :data:`FORMATS`).
+
+    Raises
+    ------
+    FileNotFoundError
+        When the file does not exist.
+    ModelFileError
+        When the format cannot be told.
+    """
+    import h5py
+
+    p = Path(path)
+    if not p.exists():
+        raise FileNotFoundError(f"no such file: {str(p)!r}")
+    if p.is_dir():
+        raise IsADirectoryError(f"{str(p)!r} is a folder, not a model file")
+    with open(p, "rb") as fh:
+        head = fh.read(4096)
+    if head.startswith(_HDF5_SIGNATURE) or p.suffix.lower() in (".h5", ".hdf5", ".h5md", ".hdf", ".nxs"):
+        if not head.startswith(_HDF5_SIGNATURE) and len(head) < 8:
+            raise ModelFileError(f"{str(p)!r} is empty or truncated: not an HDF5 file")
+        from .h5md import open_h5
+
+        with open_h5(p) as f:
+            if "particles" in f or "h5md" in f:
+                return "h5md"
+            return "hdf5"
+        raise AssertionError  # pragma: no cover
+    name = p.name.lower()
+    suffix = p.suffix.lower()
+    if suffix in (".xyz", ".extxyz"):
+        return "extxyz"
+    if suffix in (".lammpstrj", ".dump", ".lammpsdump") or "dump" in name:
+        return "lammps-dump"
+    if suffix in _ASE_SUFFIXES or name.startswith(("poscar", "contcar")):
+        return "ase"
+    text = head.lstrip()
+    if text.startswith(b"ITEM:"):
+        return "lammps-dump"
+    first = text.split(b"\n", 1)[0].split()
+    if first and first[0].isdigit():
+        return "extxyz"
+    raise ModelFileError(
+        f"cannot tell the format of {str(p)!r}; give it with format=... (command line: --format), one of "
+        f"{', '.join(FORMATS)}"
+    )
+
+
+def open_model(path, frame=None, *, format: str | None = None, group: str | None = None,
+               species_map=None, unwrap: bool = False, **datasets) -> AtomSource:
+    """Open one frame of a model file as a lazy atom source that streams in bounded chunks.
+
+    Parameters
+    ----------
+    path : str or path-like
+        H5MD, plain-layout HDF5, extended XYZ, LAMMPS dump, or (with ASE installed) a crystal
+        file such as CIF or POSCAR.
+    frame : int, optional
+        Frame index, 0-based; negative counts from the end. Default: the first frame. Other
+        frames of the same file: ``source.at_frame(i)``.
+    format : str, optional
+        One of ``"h5md"``, ``"hdf5"``, ``"extxyz"``, ``"lammps-dump"``, ``"ase"`` when the
+        name and contents do not tell it.
+    group : str, optional
+        H5MD particle group (default: the only one, else ``all``).
+    species_map : mapping of int to str, or str, optional
+        Labels of integer species codes, e.g. ``{1: "Fe", 2: "Ni"}`` or ``"1=Fe,2=Ni"``
+        (LAMMPS types, integer H5MD species, plain-layout codes).
+    unwrap : bool
+        H5MD only: add ``image`` × box edges to the positions.
+    **datasets
+        Plain layout only: dataset paths that differ from the defaults (``positions``,
+        ``species``, ``occupancy``, ``b_iso``, ``cell``, ``species_names``).
+
+    Returns
+    -------
+    AtomSource
+        With ``n_atoms``, ``n_frames``, ``frame``, ``cell`` (3x3 rows a, b, c in Å, or
+        None), ``species_labels()``, ``describe()``, ``iter_chunks(chunk_atoms)``,
+        ``at_frame(i)`` and ``read()``.
+
+    Raises
+    ------
+    FileNotFoundError
+        When the file does not exist.
+    ModelFileError
+        When the file is corrupt, truncated, lacks a needed dataset (the message lists what
+        it has) or its datasets disagree in shape.
+    InvalidInputError
+        For a bad option (unknown format, frame out of range, malformed species map).
+
+    Examples
+    --------
+    >>> import kinemap as km                                      # doctest: +SKIP
+    >>> src = km.open_model("run.h5md", frame=-1)                 # doctest: +SKIP
+    >>> pat = km.scatter(src, km.QGrid.hkl(src.cell, h=(-4, 4, 161), k=(-4, 4, 161)))  # doctest: +SKIP
+    """
+    if format is None:
+        fmt = detect_format(path)
+    else:
+        fmt = str(format).lower()
+        if fmt not in FORMATS:
+            raise InvalidInputError(f"unknown `format` {format!r}; kinemap reads {', '.join(FORMATS)}")
+    if datasets and fmt != "hdf5":
+        raise InvalidInputError(f"dataset options {sorted(datasets)} apply to the plain HDF5 layout only, "
+                                f"but {str(path)!r} is read as {fmt}")
+    if unwrap and fmt != "h5md":
+        raise InvalidInputError(f"`unwrap` applies to H5MD files only, but {str(path)!r} is read as {fmt}")
+    if group is not None and fmt != "h5md":
+        raise InvalidInputError(f"`group` applies to H5MD files only, but {str(path)!r} is read as {fmt}")
+    if fmt == "h5md":
+        return open_h5md(path, frame, group=group, species_map=species_map, unwrap=unwrap)
+    if fmt == "hdf5":
+        return open_plain(path, frame, species_map=species_map, **datasets)
+    if fmt == "extxyz":
+        return open_extxyz(path, frame, species_map=species_map)
+    if fmt == "lammps-dump":
+        return open_lammps_dump(path, frame, species_map=species_map)
+    from .ase_files import open_with_ase
+
+    if species_map is not None:
+        raise InvalidInputError("`species_map` does not apply to files read through ASE (they carry element symbols)")
+    return open_with_ase(path, frame)
+
+
+__all__ = [
+    "open_model",
+    "detect_format",
+    "convert",
+    "select_frames",
+    "write_h5md",
+    "H5MDWriter",
+    "open_h5md",
+    "open_plain",
+    "open_extxyz",
+    "open_lammps_dump",
+    "AtomSource",
+    "H5MDSource",
+    "PlainSource",
+    "TextSource",
+    "MemorySource",
+    "FORMATS",
+    "PLAIN_PATHS",
+    "length_scale",
+    "parse_species_map",
+]
