@@ -23,6 +23,7 @@
 pub mod atoms;
 pub mod error;
 pub mod grid;
+pub mod gridded;
 pub mod point;
 pub mod pool;
 pub mod sincos;
@@ -30,5 +31,6 @@ pub mod sincos;
 pub use atoms::AtomSet;
 pub use error::{Error, Result};
 pub use grid::grid_amplitudes;
+pub use gridded::{PointPlan, RegularPlan};
 pub use num_complex::Complex64;
 pub use point::point_amplitudes;

@@ -1,0 +1,506 @@
+//! Spreading weighted points onto a periodic fine grid, and its adjoint, interpolation.
+//!
+//! The fine grid is a row-major array of `dims = [n0, n1, n2]` complex values; lines and
+//! planes use trivial axes of length 1 (`[n, 1, 1]` and `[n0, 1, n2]`) so one code path serves
+//! 1, 2 and 3 dimensions with the contiguous axis innermost. A point at grid coordinate
+//! `(g0, g1, g2)` (in grid spacings, any real value, taken modulo `n_a`) adds
+//! `c · Π_a φ_a(l_a − g_a)` to the `w0 × w1 × w2` points `l_a = ⌈g_a − w_a/2⌉ + i`.
+//!
+//! Parallel spreading without data races, and with a result that does not depend on the
+//! thread count: the grid is cut along axis 0 into an even number of slabs at least `w0`
+//! planes thick, so a point that starts in slab `s` only writes into slabs `s` and `s + 1`.
+//! Points are sorted (stable counting sort) by slab and, inside a slab, by small bins of the
+//! other axes for cache reuse. All even slabs are then spread concurrently, each by one task
+//! over its points in sorted order, followed by all odd slabs. Every grid value therefore
+//! receives its contributions in one fixed order, whatever the number of threads.
+
+use super::kernel::{first_point, Kernel, MAX_WIDTH};
+use num_complex::Complex64;
+use rayon::prelude::*;
+
+/// Shape of a fine grid and the kernel width along each of its axes (1 on trivial axes).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Layout {
+    /// Grid points along each axis (row-major, axis 2 contiguous).
+    pub dims: [usize; 3],
+    /// Kernel width along each axis (`w`, or 1 where `dims[a] == 1`).
+    pub widths: [usize; 3],
+}
+
+impl Layout {
+    /// A layout for grid `dims` with kernel width `w` on every axis longer than 1.
+    pub fn new(dims: [usize; 3], w: usize) -> Self {
+        let widths = dims.map(|n| if n > 1 { w } else { 1 });
+        Layout { dims, widths }
+    }
+
+    /// Number of grid points.
+    pub fn len(&self) -> usize {
+        self.dims[0] * self.dims[1] * self.dims[2]
+    }
+
+    /// True when the grid has no points (never for a valid layout).
+    pub fn is_empty(&self) -> bool {
+        self.len() == 0
+    }
+}
+
+/// Bin sizes along axes 1 and 2 for the cache-friendly order inside a slab.
+const BIN1: usize = 4;
+const BIN2: usize = 16;
+
+/// Per-axis first grid point (wrapped into `0..n`) and kernel values of one point.
+#[inline(always)]
+fn axis_setup(ker: &Kernel, g: f64, n: usize, w: usize, k: &mut [f64; MAX_WIDTH]) -> usize {
+    if n == 1 {
+        *k = [0.0; MAX_WIDTH];
+        k[0] = 1.0;
+        return 0;
+    }
+    let (l0, t) = first_point(g, w);
+    ker.eval(t, k);
+    l0.rem_euclid(n as i64) as usize
+}
+
+/// Slab partition of axis 0: `(thickness, count)`; `count` is even or 1.
+fn slabs(lay: &Layout) -> (usize, usize) {
+    let n0 = lay.dims[0];
+    let t = lay.widths[0].max(8);
+    let mut s = n0 / t;
+    if s % 2 == 1 {
+        s -= 1;
+    }
+    if s < 2 {
+        (n0, 1)
+    } else {
+        (t, s)
+    }
+}
+
+/// View a complex slice as interleaved `re, im` doubles.
+#[inline(always)]
+fn as_f64_mut(v: &mut [Complex64]) -> &mut [f64] {
+    // SAFETY: `Complex<f64>` is `#[repr(C)]` with exactly two `f64` fields (re, im), so a slice
+    // of n complex values is a valid, aligned slice of 2n doubles with the same lifetime.
+    unsafe { std::slice::from_raw_parts_mut(v.as_mut_ptr() as *mut f64, 2 * v.len()) }
+}
+
+#[inline(always)]
+fn as_f64(v: &[Complex64]) -> &[f64] {
+    // SAFETY: as in `as_f64_mut`: the layout of `Complex<f64>` is two consecutive doubles.
+    unsafe { std::slice::from_raw_parts(v.as_ptr() as *const f64, 2 * v.len()) }
+}
+
+/// The (up to) two slabs a task may write: planes `[start, start + len)` of each.
+struct Planes<'a> {
+    parts: [(&'a mut [f64], usize, usize); 2],
+    plane: usize,
+}
+
+impl Planes<'_> {
+    #[inline(always)]
+    fn get(&mut self, p: usize) -> &mut [f64] {
+        let plane = self.plane;
+        for (buf, start, len) in self.parts.iter_mut() {
+            if p >= *start && p < *start + *len {
+                let o = (p - *start) * plane;
+                return &mut buf[o..o + plane];
+            }
+        }
+        unreachable!("plane {p} outside the task's slabs")
+    }
+}
+
+/// Add `c · φ ⊗ φ ⊗ φ` of the points `idx` (indices into `g`, `c`) to the slabs of `planes`.
+#[inline(always)]
+fn spread_points<const W: usize>(
+    planes: &mut Planes<'_>,
+    lay: &Layout,
+    ker: &Kernel,
+    g: &[[f64; 3]],
+    c: &[Complex64],
+) {
+    let [n0, n1, n2] = lay.dims;
+    let [w0, w1, _] = lay.widths;
+    let (mut k0, mut k1, mut k2) = ([0.0; MAX_WIDTH], [0.0; MAX_WIDTH], [0.0; MAX_WIDTH]);
+    let mut kc = [0.0f64; 2 * MAX_WIDTH];
+    let mut rows = [0usize; MAX_WIDTH];
+    for (gp, cj) in g.iter().zip(c) {
+        let i0 = axis_setup(ker, gp[0], n0, w0, &mut k0);
+        let i1 = axis_setup(ker, gp[1], n1, w1, &mut k1);
+        let i2 = axis_setup(ker, gp[2], n2, W, &mut k2);
+        for i in 0..W {
+            kc[2 * i] = cj.re * k2[i];
+            kc[2 * i + 1] = cj.im * k2[i];
+        }
+        for (b, r) in rows.iter_mut().enumerate().take(w1) {
+            let mut y = i1 + b;
+            if y >= n1 {
+                y -= n1;
+            }
+            *r = y * n2;
+        }
+        let contiguous = i2 + W <= n2;
+        for (a, &ka) in k0.iter().enumerate().take(w0) {
+            let mut p = i0 + a;
+            if p >= n0 {
+                p -= n0;
+            }
+            let plane = planes.get(p);
+            for b in 0..w1 {
+                let f = ka * k1[b];
+                if contiguous {
+                    let o = 2 * (rows[b] + i2);
+                    let row = &mut plane[o..o + 2 * W];
+                    for i in 0..2 * W {
+                        row[i] = crate::sincos::mul_add(f, kc[i], row[i]);
+                    }
+                } else {
+                    for i in 0..W {
+                        let mut z = i2 + i;
+                        if z >= n2 {
+                            z -= n2;
+                        }
+                        let o = 2 * (rows[b] + z);
+                        plane[o] = crate::sincos::mul_add(f, kc[2 * i], plane[o]);
+                        plane[o + 1] = crate::sincos::mul_add(f, kc[2 * i + 1], plane[o + 1]);
+                    }
+                }
+            }
+        }
+    }
+}
+
+/// Sort points by slab and bin (stable counting sort); returns the sorted coordinates and
+/// weights and the start of every slab's run.
+fn sort_points(
+    lay: &Layout,
+    g: &[[f64; 3]],
+    c: &[Complex64],
+    thick: usize,
+    n_slabs: usize,
+) -> (Vec<[f64; 3]>, Vec<Complex64>, Vec<usize>) {
+    let [n0, n1, n2] = lay.dims;
+    let nb1 = n1.div_ceil(BIN1);
+    let nb2 = n2.div_ceil(BIN2);
+    let per_slab = nb1 * nb2;
+    let first = |x: f64, n: usize, w: usize| -> usize {
+        if n == 1 {
+            0
+        } else {
+            first_point(x, w).0.rem_euclid(n as i64) as usize
+        }
+    };
+    let keys: Vec<u32> = g
+        .par_iter()
+        .with_min_len(4096)
+        .map(|p| {
+            let s = (first(p[0], n0, lay.widths[0]) / thick).min(n_slabs - 1);
+            let b1 = first(p[1], n1, lay.widths[1]) / BIN1;
+            let b2 = first(p[2], n2, lay.widths[2]) / BIN2;
+            ((s * nb1 + b1) * nb2 + b2) as u32
+        })
+        .collect();
+    let n_bins = n_slabs * per_slab;
+    let mut start = vec![0usize; n_bins + 1];
+    for &k in &keys {
+        start[k as usize + 1] += 1;
+    }
+    for b in 0..n_bins {
+        start[b + 1] += start[b];
+    }
+    let slab_start: Vec<usize> = (0..=n_slabs).map(|s| start[s * per_slab]).collect();
+    let mut next = start;
+    let mut gs = vec![[0.0; 3]; g.len()];
+    let mut cs = vec![Complex64::new(0.0, 0.0); g.len()];
+    for ((&k, p), cj) in keys.iter().zip(g).zip(c) {
+        let d = &mut next[k as usize];
+        gs[*d] = *p;
+        cs[*d] = *cj;
+        *d += 1;
+    }
+    (gs, cs, slab_start)
+}
+
+macro_rules! dispatch_width {
+    ($w:expr, $f:ident, $($arg:expr),*) => {
+        match $w {
+            1 => $f::<1>($($arg),*),
+            2 => $f::<2>($($arg),*),
+            3 => $f::<3>($($arg),*),
+            4 => $f::<4>($($arg),*),
+            5 => $f::<5>($($arg),*),
+            6 => $f::<6>($($arg),*),
+            7 => $f::<7>($($arg),*),
+            8 => $f::<8>($($arg),*),
+            9 => $f::<9>($($arg),*),
+            10 => $f::<10>($($arg),*),
+            11 => $f::<11>($($arg),*),
+            12 => $f::<12>($($arg),*),
+            13 => $f::<13>($($arg),*),
+            14 => $f::<14>($($arg),*),
+            15 => $f::<15>($($arg),*),
+            16 => $f::<16>($($arg),*),
+            _ => unreachable!("kernel width above MAX_WIDTH"),
+        }
+    };
+}
+
+/// Add the spread of points at grid coordinates `g` with weights `c` to `grid`
+/// (`lay.len()` values, row-major). Runs on the current rayon pool.
+pub fn spread(grid: &mut [Complex64], lay: &Layout, ker: &Kernel, g: &[[f64; 3]], c: &[Complex64]) {
+    debug_assert_eq!(grid.len(), lay.len());
+    if g.is_empty() {
+        return;
+    }
+    let (thick, n_slabs) = slabs(lay);
+    let (gs, cs, slab_start) = sort_points(lay, g, c, thick, n_slabs);
+    let plane = 2 * lay.dims[1] * lay.dims[2];
+    let flat = as_f64_mut(grid);
+    let w2 = lay.widths[2];
+    if n_slabs == 1 {
+        let (a, b) = flat.split_at_mut(flat.len());
+        let mut planes = Planes {
+            parts: [(a, 0, lay.dims[0]), (b, lay.dims[0], 0)],
+            plane,
+        };
+        dispatch_width!(w2, spread_points, &mut planes, lay, ker, &gs, &cs);
+        return;
+    }
+    let bounds = |s: usize| -> (usize, usize) {
+        let p0 = s * thick;
+        let p1 = if s + 1 == n_slabs {
+            lay.dims[0]
+        } else {
+            p0 + thick
+        };
+        (p0, p1 - p0)
+    };
+    for phase in 0..2 {
+        // Cut the grid into slabs, then pair slab s (of this phase's parity) with s + 1.
+        let mut parts: Vec<&mut [f64]> = Vec::with_capacity(n_slabs);
+        let mut rest: &mut [f64] = &mut *flat;
+        for s in 0..n_slabs {
+            let (_, len) = bounds(s);
+            let (head, tail) = rest.split_at_mut(len * plane);
+            parts.push(head);
+            rest = tail;
+        }
+        let mut tasks = Vec::with_capacity(n_slabs / 2);
+        let mut it = parts.into_iter();
+        let mut slab0 = if phase == 1 { it.next() } else { None };
+        let mut s = phase;
+        while s < n_slabs {
+            let a = it.next().expect("slab");
+            let b = if s + 1 < n_slabs {
+                it.next().expect("slab")
+            } else {
+                slab0.take().expect("slab 0")
+            };
+            tasks.push((s, a, b));
+            s += 2;
+        }
+        tasks.into_par_iter().for_each(|(s, a, b)| {
+            let (pa, la) = bounds(s);
+            let (pb, lb) = bounds((s + 1) % n_slabs);
+            let mut planes = Planes {
+                parts: [(a, pa, la), (b, pb, lb)],
+                plane,
+            };
+            let r = slab_start[s]..slab_start[s + 1];
+            dispatch_width!(
+                w2,
+                spread_points,
+                &mut planes,
+                lay,
+                ker,
+                &gs[r.clone()],
+                &cs[r]
+            );
+        });
+    }
+}
+
+/// Interpolation (the adjoint of spreading): `out[j] = Σ_l grid[l] Π_a φ_a(l_a − g_a)`.
+/// Parallel over points; each value is summed by one thread in a fixed order.
+pub fn interp(
+    grid: &[Complex64],
+    lay: &Layout,
+    ker: &Kernel,
+    g: &[[f64; 3]],
+    out: &mut [Complex64],
+) {
+    let flat = as_f64(grid);
+    let w2 = lay.widths[2];
+    out.par_chunks_mut(1024)
+        .zip(g.par_chunks(1024))
+        .for_each(|(o, gp)| {
+            dispatch_width!(w2, interp_points, flat, lay, ker, gp, o);
+        });
+}
+
+#[inline(always)]
+fn interp_points<const W: usize>(
+    flat: &[f64],
+    lay: &Layout,
+    ker: &Kernel,
+    g: &[[f64; 3]],
+    out: &mut [Complex64],
+) {
+    let [n0, n1, n2] = lay.dims;
+    let [w0, w1, _] = lay.widths;
+    let (mut k0, mut k1, mut k2) = ([0.0; MAX_WIDTH], [0.0; MAX_WIDTH], [0.0; MAX_WIDTH]);
+    let mut k2d = [0.0f64; 2 * MAX_WIDTH];
+    let plane = 2 * n1 * n2;
+    for (gp, o) in g.iter().zip(out.iter_mut()) {
+        let i0 = axis_setup(ker, gp[0], n0, w0, &mut k0);
+        let i1 = axis_setup(ker, gp[1], n1, w1, &mut k1);
+        let i2 = axis_setup(ker, gp[2], n2, W, &mut k2);
+        for i in 0..W {
+            k2d[2 * i] = k2[i];
+            k2d[2 * i + 1] = k2[i];
+        }
+        let contiguous = i2 + W <= n2;
+        let mut acc = [0.0f64; 2 * MAX_WIDTH];
+        for (a, &ka) in k0.iter().enumerate().take(w0) {
+            let mut p = i0 + a;
+            if p >= n0 {
+                p -= n0;
+            }
+            let base = p * plane;
+            for (b, &kb) in k1.iter().enumerate().take(w1) {
+                let mut y = i1 + b;
+                if y >= n1 {
+                    y -= n1;
+                }
+                let f = ka * kb;
+                let rb = base + 2 * y * n2;
+                if contiguous {
+                    let row = &flat[rb + 2 * i2..rb + 2 * i2 + 2 * W];
+                    for i in 0..2 * W {
+                        acc[i] = crate::sincos::mul_add(f * k2d[i], row[i], acc[i]);
+                    }
+                } else {
+                    for i in 0..W {
+                        let mut z = i2 + i;
+                        if z >= n2 {
+                            z -= n2;
+                        }
+                        let fk = f * k2d[2 * i];
+                        acc[2 * i] = crate::sincos::mul_add(fk, flat[rb + 2 * z], acc[2 * i]);
+                        acc[2 * i + 1] =
+                            crate::sincos::mul_add(fk, flat[rb + 2 * z + 1], acc[2 * i + 1]);
+                    }
+                }
+            }
+        }
+        let (mut re, mut im) = (0.0, 0.0);
+        for i in 0..W {
+            re += acc[2 * i];
+            im += acc[2 * i + 1];
+        }
+        *o = Complex64::new(re, im);
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn direct(lay: &Layout, ker: &Kernel, g: &[[f64; 3]], c: &[Complex64]) -> Vec<Complex64> {
+        // Reference: the definition, point by point with the closed-form kernel and modulo.
+        let mut out = vec![Complex64::new(0.0, 0.0); lay.len()];
+        for (p, cj) in g.iter().zip(c) {
+            let mut idx = [[0usize; MAX_WIDTH]; 3];
+            let mut val = [[0.0; MAX_WIDTH]; 3];
+            for a in 0..3 {
+                let (n, w) = (lay.dims[a], lay.widths[a]);
+                if n == 1 {
+                    val[a][0] = 1.0;
+                    continue;
+                }
+                let l0 = (p[a] - 0.5 * w as f64).ceil();
+                for i in 0..w {
+                    let l = l0 + i as f64;
+                    idx[a][i] = (l as i64).rem_euclid(n as i64) as usize;
+                    val[a][i] = ker.phi((l - p[a]) / (0.5 * w as f64));
+                }
+            }
+            for a in 0..lay.widths[0] {
+                for b in 0..lay.widths[1] {
+                    for e in 0..lay.widths[2] {
+                        let o = (idx[0][a] * lay.dims[1] + idx[1][b]) * lay.dims[2] + idx[2][e];
+                        out[o] += cj * (val[0][a] * val[1][b] * val[2][e]);
+                    }
+                }
+            }
+        }
+        out
+    }
+
+    fn points(n: usize, dims: [usize; 3], seed: u64) -> (Vec<[f64; 3]>, Vec<Complex64>) {
+        let mut s = seed;
+        let mut r = || {
+            s = s
+                .wrapping_mul(6364136223846793005)
+                .wrapping_add(1442695040888963407);
+            (s >> 11) as f64 / (1u64 << 53) as f64
+        };
+        let g = (0..n)
+            .map(|_| {
+                [
+                    r() * dims[0] as f64 * 1.5 - 3.0,
+                    r() * dims[1] as f64,
+                    r() * dims[2] as f64 - 2.0,
+                ]
+            })
+            .collect();
+        let c = (0..n)
+            .map(|_| Complex64::new(r() - 0.5, r() - 0.5))
+            .collect();
+        (g, c)
+    }
+
+    #[test]
+    fn spread_matches_the_definition_in_1_2_3_dimensions() {
+        let ker = Kernel::new(1e-9, 2.0).unwrap();
+        for dims in [[40, 1, 1], [36, 1, 20], [32, 18, 24], [20, 12, 12]] {
+            let lay = Layout::new(dims, ker.w);
+            let (g, c) = points(300, dims, 7);
+            let mut grid = vec![Complex64::new(0.0, 0.0); lay.len()];
+            spread(&mut grid, &lay, &ker, &g, &c);
+            let want = direct(&lay, &ker, &g, &c);
+            let err = grid
+                .iter()
+                .zip(&want)
+                .map(|(a, b)| (a - b).norm())
+                .fold(0.0, f64::max);
+            assert!(err < 1e-9, "dims {dims:?}: max error {err}");
+            // Interpolation is the adjoint: <spread(c), v> = <c, interp(v)>.
+            let v: Vec<Complex64> = (0..lay.len())
+                .map(|i| Complex64::new((i as f64 * 0.37).sin(), (i as f64 * 0.11).cos()))
+                .collect();
+            let mut iv = vec![Complex64::new(0.0, 0.0); g.len()];
+            interp(&v, &lay, &ker, &g, &mut iv);
+            let lhs: Complex64 = grid.iter().zip(&v).map(|(a, b)| a * b).sum();
+            let rhs: Complex64 = c.iter().zip(&iv).map(|(a, b)| a * b).sum();
+            assert!(
+                (lhs - rhs).norm() < 1e-10 * lhs.norm().max(1.0),
+                "{lhs} vs {rhs}"
+            );
+        }
+    }
+
+    #[test]
+    fn spread_is_identical_for_1_and_2_threads() {
+        let ker = Kernel::new(1e-6, 2.0).unwrap();
+        let lay = Layout::new([64, 32, 32], ker.w);
+        let (g, c) = points(20_000, lay.dims, 3);
+        let run = |t: usize| {
+            let mut grid = vec![Complex64::new(0.0, 0.0); lay.len()];
+            crate::pool::run(Some(t), || spread(&mut grid, &lay, &ker, &g, &c)).unwrap();
+            grid
+        };
+        assert_eq!(run(1), run(2));
+    }
+}
