@@ -1,0 +1,354 @@
+"""Pictures of maps (matplotlib, Agg backend): 2-D maps, 1-D profiles, slices of volumes.
+
+* 2-D maps (plane grids, hkl grids with two ranged axes, or a slice of a volume) are drawn
+  with a log or linear colour scale and a labelled colour bar. Axes are in Å⁻¹ (true
+  geometry: points are placed at their in-plane q coordinates, so skewed planes look skewed)
+  or, for hkl grids, in reciprocal-lattice units (h, k, l as plotted numbers).
+* 1-D grids (lines, one ranged hkl axis) are drawn as line profiles.
+
+Files are written under a temporary name and renamed when complete.
+"""
+
+from __future__ import annotations
+
+import os
+from pathlib import Path
+
+import numpy as np
+
+from .errors import InvalidInputError
+from .pattern import Pattern, atomic_output
+
+SCALES = ("log", "linear")
+AXIS_UNITS = ("auto", "rlu", "inv-angstrom")
+QUANTITIES = ("intensity", "amplitude-abs", "amplitude-real", "amplitude-imag", "phase")
+
+
+def _plt():
+    import matplotlib
+
+    if matplotlib.get_backend().lower() not in ("agg", "module://matplotlib_inline.backend_inline"):
+        try:
+            matplotlib.use("Agg", force=True)
+        except Exception:  # pragma: no cover - backend already fixed by the user
+            pass
+    import matplotlib.pyplot as plt
+
+    return plt
+
+
+def _values(pattern: Pattern, quantity: str) -> tuple[np.ndarray, str]:
+    u = pattern.units
+    sq = f"{u}²" if u not in ("1", "") else "arb. units"
+    if quantity == "intensity":
+        kind = pattern.metadata.get("average")
+        name = {"total": "total ⟨|A|²⟩", "bragg": "Bragg |⟨A⟩|²", "diffuse": "diffuse ⟨|A|²⟩ − |⟨A⟩|²"}.get(kind, "intensity |A|²")
+        return pattern.intensity, f"{name} ({sq})"
+    if pattern.amplitude is None:
+        raise InvalidInputError(f"`quantity`={quantity!r} needs an amplitude, but this map has only an intensity "
+                                "(frame-averaged total or diffuse map)")
+    a = pattern.amplitude
+    ua = u if u not in ("1", "") else "arb. units"
+    return {
+        "amplitude-abs": (np.abs(a), f"|A| ({ua})"),
+        "amplitude-real": (a.real, f"Re A ({ua})"),
+        "amplitude-imag": (a.imag, f"Im A ({ua})"),
+        "phase": (np.angle(a), "phase of A (rad)"),
+    }[quantity]
+
+
+def _check(name, value, allowed):
+    if value not in allowed:
+        raise InvalidInputError(f"`{name}` must be one of {allowed}, got {value!r}")
+
+
+def _norm(values: np.ndarray, scale: str, vmin, vmax):
+    from matplotlib.colors import LogNorm, Normalize
+
+    finite = values[np.isfinite(values)]
+    if scale == "log":
+        pos = finite[finite > 0]
+        if pos.size == 0:
+            raise InvalidInputError("a log scale needs positive values, but the map has none; use scale='linear'")
+        hi = float(pos.max()) if vmax is None else float(vmax)
+        lo = max(float(pos.min()), hi * 1e-8) if vmin is None else float(vmin)
+        if not (0 < lo < hi):
+            raise InvalidInputError(f"log scale limits must satisfy 0 < vmin < vmax, got {lo}, {hi}")
+        return LogNorm(vmin=lo, vmax=hi)
+    lo = float(finite.min()) if vmin is None else float(vmin)
+    hi = float(finite.max()) if vmax is None else float(vmax)
+    if hi <= lo:
+        hi = lo + 1.0
+    return Normalize(vmin=lo, vmax=hi)
+
+
+def _slice_2d(pattern: Pattern, slice_axis, slice_index):
+    """Return (values-selector, kept axes, description) for a 2-D view."""
+    g = pattern.grid
+    nd = len(g.shape)
+    if nd == 2:
+        if slice_axis is not None:
+            raise InvalidInputError("`slice_axis` applies to 3-D maps only; this map is 2-D")
+        return (slice(None), slice(None)), [0, 1], ""
+    if nd != 3:
+        raise InvalidInputError(f"a 2-D picture needs a 2-D or 3-D map, this one has shape {g.shape}")
+    if slice_axis is None:
+        slice_axis = 2
+    if isinstance(slice_axis, str):
+        if slice_axis not in g.axis_names:
+            raise InvalidInputError(f"`slice_axis` {slice_axis!r} is not an axis of this map ({g.axis_names})")
+        slice_axis = g.axis_names.index(slice_axis)
+    if not 0 <= int(slice_axis) < 3:
+        raise InvalidInputError(f"`slice_axis` must be 0, 1 or 2 (or an axis name), got {slice_axis!r}")
+    ax = int(slice_axis)
+    n = g.shape[ax]
+    idx = n // 2 if slice_index is None else int(slice_index)
+    if idx < 0:
+        idx += n
+    if not 0 <= idx < n:
+        raise InvalidInputError(f"`slice_index` {slice_index} is outside 0..{n - 1} along axis {g.axis_names[ax]!r}")
+    sel = [slice(None)] * 3
+    sel[ax] = idx
+    keep = [i for i in range(3) if i != ax]
+    val = g.axis_values[ax][idx] if g.axis_values else idx
+    desc = f"{g.axis_names[ax]} = {val:.4g} {'r.l.u.' if g.kind == 'hkl' else 'Å⁻¹ along the edge'} (index {idx})"
+    return tuple(sel), keep, desc
+
+
+def _plane_coords(pattern: Pattern, keep):
+    """In-plane Cartesian coordinates (Å⁻¹) of the grid points, for true-geometry plots."""
+    g = pattern.grid
+    s0, s1 = g.steps[keep[0]], g.steps[keep[1]]
+    n0, n1 = g.shape[keep[0]], g.shape[keep[1]]
+    e1 = s0 / np.linalg.norm(s0) if np.linalg.norm(s0) > 0 else np.array([1.0, 0, 0])
+    v = s1 - (s1 @ e1) * e1
+    e2 = v / np.linalg.norm(v) if np.linalg.norm(v) > 1e-15 * max(np.linalg.norm(s1), 1e-300) else np.cross(e1, [0, 0, 1.0])
+    i = np.arange(n0)[:, None]
+    j = np.arange(n1)[None, :]
+    x = i * (s0 @ e1) + j * (s1 @ e1)
+    y = i * (s0 @ e2) + j * (s1 @ e2)
+    # origin of the plane, written in the in-plane basis, so axes read as q components
+    o = g.origin
+    return x + o @ e1, y + o @ e2, e1, e2
+
+
+def _fmt_vec(v) -> str:
+    return "(" + ", ".join(f"{x:.3g}" for x in v) + ")"
+
+
+def plot_map(pattern: Pattern, ax=None, *, scale: str = "log", axis_units: str = "auto",
+             quantity: str = "intensity", slice_axis=None, slice_index=None, cmap: str = "viridis",
+             vmin=None, vmax=None, title: str | None = None):
+    """Draw a 2-D map (or a slice of a volume) with a colour bar.
+
+    Parameters
+    ----------
+    pattern : Pattern
+        A map on a plane, a 2-D hkl grid or a volume.
+    ax : matplotlib Axes, optional
+        Where to draw (a new figure when None).
+    scale : {"log", "linear"}
+        Colour scale; log shows values down to 1e-8 of the maximum (non-positive values
+        blank).
+    axis_units : {"auto", "rlu", "inv-angstrom"}
+        Reciprocal-lattice units (hkl grids only; "auto" picks them there) or Å⁻¹ with the
+        true in-plane geometry.
+    quantity : str
+        "intensity" or a view of the amplitude ("amplitude-abs", "amplitude-real",
+        "amplitude-imag", "phase").
+    slice_axis, slice_index : int or str, int
+        For a volume: which axis to cut (index or name, default the last) and where
+        (default the middle).
+    cmap, vmin, vmax, title
+        Colour map, colour limits, title.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    _check("scale", scale, SCALES)
+    _check("axis_units", axis_units, AXIS_UNITS)
+    _check("quantity", quantity, QUANTITIES)
+    plt = _plt()
+    g = pattern.grid
+    if not g.is_regular:
+        raise InvalidInputError("maps on arbitrary q-points have no 2-D layout to draw; use a plane, hkl or volume grid")
+    sel, keep, cut = _slice_2d(pattern, slice_axis, slice_index)
+    values, label = _values(pattern, quantity)
+    z = np.asarray(values[sel], dtype=np.float64)
+    if ax is None:
+        fig, ax = plt.subplots(figsize=(6.4, 5.2), layout="constrained")
+    else:
+        fig = ax.figure
+    norm = _norm(z, scale if quantity != "phase" else "linear", vmin, vmax)
+    if scale == "log" and quantity != "phase":
+        z = np.where(z > 0, z, np.nan)
+    use_rlu = axis_units == "rlu" or (axis_units == "auto" and g.kind == "hkl")
+    if use_rlu:
+        if g.kind != "hkl":
+            raise InvalidInputError("reciprocal-lattice units need an hkl grid (QGrid.hkl); use axis_units='inv-angstrom'")
+        xs, ys = g.axis_values[keep[0]], g.axis_values[keep[1]]
+        mesh = ax.pcolormesh(xs, ys, z.T, norm=norm, cmap=cmap, shading="nearest")
+        ax.set_xlabel(f"{g.axis_names[keep[0]]} (r.l.u.)")
+        ax.set_ylabel(f"{g.axis_names[keep[1]]} (r.l.u.)")
+        ax.set_aspect("auto")
+    else:
+        x, y, e1, e2 = _plane_coords(pattern, keep)
+        mesh = ax.pcolormesh(x, y, z, norm=norm, cmap=cmap, shading="nearest")
+        ax.set_xlabel(f"q along {_fmt_vec(e1)} (Å⁻¹)")
+        ax.set_ylabel(f"q along {_fmt_vec(e2)} (Å⁻¹)")
+        ax.set_aspect("equal")
+    cb = fig.colorbar(mesh, ax=ax)
+    cb.set_label(label)
+    if title is None:
+        title = _default_title(pattern)
+    if cut:
+        title = f"{title}\n{cut}" if title else cut
+    if title:
+        ax.set_title(title, fontsize=10)
+    return fig
+
+
+def _default_title(pattern: Pattern) -> str:
+    md = pattern.metadata
+    parts = []
+    model = md.get("model") or {}
+    if isinstance(model, dict) and model.get("file"):
+        parts.append(Path(str(model["file"])).name)
+    probe = md.get("probe")
+    if isinstance(probe, dict) and probe.get("probe"):
+        parts.append(str(probe["probe"]))
+    if md.get("frames") is not None and isinstance(md.get("frames"), list):
+        parts.append(f"{len(md['frames'])} frames")
+    return ", ".join(parts)
+
+
+def plot_profile(pattern: Pattern, ax=None, *, scale: str = "log", axis_units: str = "auto",
+                 quantity: str = "intensity", title: str | None = None, label: str | None = None):
+    """Draw a 1-D map (line grid or one ranged hkl axis) as a profile.
+
+    Parameters
+    ----------
+    pattern : Pattern
+        A map with one axis.
+    ax : matplotlib Axes, optional
+    scale : {"log", "linear"}
+        Scale of the value axis.
+    axis_units : {"auto", "rlu", "inv-angstrom"}
+        The abscissa: the hkl coordinate (r.l.u.) or the distance along the line in Å⁻¹.
+    quantity, title, label
+        What to draw, title, legend label.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    _check("scale", scale, SCALES)
+    _check("axis_units", axis_units, AXIS_UNITS)
+    _check("quantity", quantity, QUANTITIES)
+    plt = _plt()
+    g = pattern.grid
+    if len(g.shape) != 1 or not g.is_regular:
+        raise InvalidInputError(f"a profile needs a 1-D line or hkl grid; this map has shape {g.shape} ({g.kind})")
+    values, vlabel = _values(pattern, quantity)
+    if ax is None:
+        fig, ax = plt.subplots(figsize=(6.4, 4.0), layout="constrained")
+    else:
+        fig = ax.figure
+    use_rlu = axis_units == "rlu" or (axis_units == "auto" and g.kind == "hkl")
+    if use_rlu:
+        if g.kind != "hkl":
+            raise InvalidInputError("reciprocal-lattice units need an hkl grid; use axis_units='inv-angstrom'")
+        x = g.axis_values[0]
+        ax.set_xlabel(f"{g.axis_names[0]} (r.l.u.)")
+    else:
+        x = np.arange(g.shape[0]) * float(np.linalg.norm(g.steps[0]))
+        ax.set_xlabel(f"distance along the line from q₀ = {_fmt_vec(g.origin)} (Å⁻¹)")
+    y = np.asarray(values, dtype=np.float64)
+    if scale == "log" and quantity != "phase":
+        if not np.any(y > 0):
+            raise InvalidInputError("a log scale needs positive values, but the profile has none; use scale='linear'")
+        y = np.where(y > 0, y, np.nan)
+        ax.set_yscale("log")
+    ax.plot(x, y, lw=1.2, label=label)
+    ax.set_ylabel(vlabel)
+    if label:
+        ax.legend()
+    ax.set_title(_default_title(pattern) if title is None else title, fontsize=10)
+    ax.grid(alpha=0.3)
+    return fig
+
+
+def plot_slice(pattern: Pattern, slice_axis=2, slice_index=None, ax=None, **options):
+    """Draw one slice of a 3-D map (see :func:`plot_map`); `slice_axis` is an index or name."""
+    if len(pattern.grid.shape) != 3:
+        raise InvalidInputError(f"`plot_slice` needs a 3-D map, this one has shape {pattern.grid.shape}")
+    return plot_map(pattern, ax, slice_axis=slice_axis, slice_index=slice_index, **options)
+
+
+def render(pattern: Pattern, path, *, dpi: int = 100, size=(6.4, 5.2), **options) -> Path:
+    """Draw `pattern` (a profile for 1-D maps, a map for 2-D, a slice for 3-D) into a PNG.
+
+    Parameters
+    ----------
+    pattern : Pattern
+    path : str or path-like
+        Output PNG (written under a temporary name and renamed when complete).
+    dpi : int
+        Dots per inch; the image is ``size × dpi`` pixels.
+    size : (float, float)
+        Figure width and height in inches.
+    **options
+        Passed to :func:`plot_map` or :func:`plot_profile`.
+
+    Returns
+    -------
+    pathlib.Path
+
+    Raises
+    ------
+    InvalidInputError
+        Bad options, or a map that cannot be drawn (arbitrary q-points, no positive values on
+        a log scale).
+    OSError
+        An unwritable output path.
+    """
+    plt = _plt()
+    if isinstance(dpi, bool) or not isinstance(dpi, (int, np.integer)) or not 10 <= dpi <= 1200:
+        raise InvalidInputError(f"`dpi` must be a whole number in 10..1200, got {dpi!r}")
+    try:
+        w, h = (float(s) for s in size)
+    except (TypeError, ValueError):
+        raise InvalidInputError(f"`size` must be (width, height) in inches, got {size!r}") from None
+    if not (0.5 <= w <= 50 and 0.5 <= h <= 50):
+        raise InvalidInputError(f"`size` must be between 0.5 and 50 inches each way, got {size!r}")
+    final, tmp = atomic_output(path)
+    fig = None
+    try:
+        fig = plt.figure(figsize=(w, h), dpi=dpi, layout="constrained")
+        ax = fig.add_subplot()
+        nd = len(pattern.grid.shape)
+        if nd == 1:
+            options.pop("slice_axis", None)
+            options.pop("slice_index", None)
+            options.pop("cmap", None)
+            options.pop("vmin", None)
+            options.pop("vmax", None)
+            plot_profile(pattern, ax, **options)
+        else:
+            plot_map(pattern, ax, **options)
+        fig.savefig(tmp, format="png", dpi=dpi)
+        os.replace(tmp, final)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except OSError:
+            pass
+        raise
+    finally:
+        if fig is not None:
+            plt.close(fig)
+    return final
+
+
+__all__ = ["plot_map", "plot_profile", "plot_slice", "render", "SCALES", "AXIS_UNITS", "QUANTITIES"]
