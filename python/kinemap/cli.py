@@ -44,7 +44,7 @@ class UsageError(Exception):
 
 class _Parser(argparse.ArgumentParser):
     def error(self, message):  # one line, exit code 2
-        raise UsageError(f"{self.prog}: {message} (see --help)")
+        raise UsageError(f"{message} (see {self.prog} --help)")
 
 
 # --------------------------------------------------------------------------------------

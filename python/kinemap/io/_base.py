@@ -220,7 +220,7 @@ def check_values(values: np.ndarray, name: str, lo: float, hi: float | None, off
     if bad.any():
         j = int(np.flatnonzero(bad)[0])
         rng = f"[{lo}, {hi}]" if hi is not None else f">= {lo}"
-        raise ModelFileError(f"{where}: {name} of atom {offset + j} is {values[j]!r}, outside {rng}")
+        raise ModelFileError(f"{where}: {name} of atom {offset + j} is {float(values[j])!r}, outside {rng}")
 
 
 def normalise_frame(frame, n_frames: int, where: str) -> int:

@@ -186,7 +186,7 @@ def convert(source_or_path, output, *, frames=None, species_map=None, format: st
                     unknown = labels_arr[lab_codes] != sp
                     if unknown.any():
                         j = int(np.flatnonzero(unknown)[0])
-                        raise ModelFileError(f"{base.path}: frame {f} has species {sp[j]!r} (atom {int(rows[j])}), "
+                        raise ModelFileError(f"{base.path}: frame {f} has species {str(sp[j])!r} (atom {int(rows[j])}), "
                                              f"which frame {chosen[0]} does not have; H5MD stores species once")
                     if k == 0:
                         if codes0 is None:
