@@ -1,0 +1,205 @@
+"""Planar and icosahedral cut-and-project schemes and their models.
+
+* :func:`octagonal` — Ammann–Beenker vertex set from Z⁴ (regular-octagon window).
+* :func:`penrose` — Penrose rhombic vertex set from Z⁵ (pentagon windows on four levels).
+* :func:`icosahedral` — three-dimensional Penrose (Ammann–Kramer) vertex set from Z⁶
+  (rhombic-triacontahedron window).
+
+Bases follow /work/shared/REFERENCES.md (Baake & Grimm 2013; de Bruijn 1981; Elser 1985):
+octagonal e_j∥ = (cos πj/4, sin πj/4), e_j⊥ = (cos 3πj/4, sin 3πj/4); Penrose
+e_j∥ = (cos 2πj/5, sin 2πj/5), e_j⊥ = (cos 4πj/5, sin 4πj/5) plus the level Σn_j;
+icosahedral e_j∥ ∝ (±1, τ, 0), (0, ±1, τ), (±τ, 0, 1), e_j⊥ their Galois conjugates
+(τ → −1/τ), all of unit length. Edge lengths scale both spaces.
+
+Each scheme can stream points (:meth:`CutProjectScheme.iter_points`), build a
+:class:`kinemap.Model`, give its Fourier module and window transform, and make periodic
+approximants (:meth:`CutProjectScheme.approximant`).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from ..errors import InvalidInputError
+from ._precise import metallic_mean
+from .scheme import CutProjectScheme, canonical_window
+
+TAU = (1.0 + math.sqrt(5.0)) / 2.0
+SILVER = 1.0 + math.sqrt(2.0)
+
+
+def _edge(edge) -> float:
+    try:
+        a = float(edge)
+    except (TypeError, ValueError):
+        raise InvalidInputError(f"`edge` must be a length in Å, got {edge!r}") from None
+    if not (np.isfinite(a) and a > 0):
+        raise InvalidInputError(f"`edge` must be a finite length > 0 (Å), got {edge!r}")
+    return a
+
+
+def _shift(shift, n: int) -> np.ndarray:
+    if shift is None:
+        return np.zeros(n)
+    s = np.asarray(shift, dtype=np.float64).reshape(-1)
+    if s.shape != (n,) or not np.isfinite(s).all():
+        raise InvalidInputError(f"`shift` must be {n} finite numbers (internal-space Å), got {shift!r}")
+    return s
+
+
+def octagonal(edge: float = 1.0, shift=None) -> CutProjectScheme:
+    """Ammann–Beenker (octagonal) vertex set from Z⁴.
+
+    Parameters
+    ----------
+    edge : float
+        Rhombus/square edge length in Å.
+    shift : array_like (2,), optional
+        Phason shift of the window (internal-space Å). The window is the regular octagon
+        Σ_j [−½, ½] e_j⊥ (area 2(1+√2)·edge²) moved by `shift`.
+
+    Returns
+    -------
+    CutProjectScheme
+        Density (1+√2)/2 = 1.207107 points per edge² (REFERENCES.md); module
+        k = ½ Σ h_j e_j∥ / edge² (cycles/Å), inflation factor 1+√2.
+    """
+    a = _edge(edge)
+    j = np.arange(4)
+    par = a * np.array([np.cos(np.pi * j / 4), np.sin(np.pi * j / 4)])
+    perp = a * np.array([np.cos(3 * np.pi * j / 4), np.sin(3 * np.pi * j / 4)])
+    offset = np.full(4, -0.5)
+    s = _shift(shift, 2)
+    window = canonical_window(perp, offset, "zonotope").translated(s)
+    # parallel = edge · (U + √2 V)
+    u = [[1, 0, 0, 0], [0, 0, 1, 0]]
+    v = [[0, 0.5, 0, -0.5], [0, 0.5, 0, 0.5]]
+    return CutProjectScheme("octagonal (Ammann–Beenker)", par, perp, window, hypercube_offset=offset,
+                            window_kind="zonotope", shift=s, inflation_factor=SILVER,
+                            rational_form=(u, v, [a, a], math.sqrt(2.0)), edge_length=a)
+
+
+def penrose(edge: float = 1.0, shift=None) -> CutProjectScheme:
+    """Penrose rhombic vertex set from Z⁵ (de Bruijn 1981).
+
+    Parameters
+    ----------
+    edge : float
+        Rhombus edge length in Å.
+    shift : array_like (2,), optional
+        Phason shift of the pentagon windows within the perpendicular plane. Shift zero is a
+        singular tiling; boundary points are then decided by the regularisation rule of
+        :mod:`kinemap.quasi.windows` (the limit of a generic shift).
+
+    Returns
+    -------
+    CutProjectScheme
+        Internal space (perpendicular plane, level ι = Σ n_j); windows P, −τP, τP, −P on
+        levels 1–4 with P = conv{e_j⊥}; density 1.231073 per edge²; module
+        k = (2/5) Σ h_j e_j∥ / edge² (REFERENCES.md). Indices h and h + (1,1,1,1,1) are the
+        same module vector.
+    """
+    a = _edge(edge)
+    j = np.arange(5)
+    par = a * np.array([np.cos(2 * np.pi * j / 5), np.sin(2 * np.pi * j / 5)])
+    perp = np.vstack([a * np.cos(4 * np.pi * j / 5), a * np.sin(4 * np.pi * j / 5), np.ones(5)])
+    offset = np.zeros(5)
+    s2 = _shift(shift, 2)
+    s = np.array([s2[0], s2[1], 0.0])
+    window = canonical_window(perp, offset, "sliced").translated(s)
+    sin72 = math.sin(2 * math.pi / 5)
+    u = [[1, -0.5, 0, 0, -0.5], [0, 1, -1, 1, -1]]
+    v = [[0, 0.5, -0.5, -0.5, 0.5], [0, 0, 1, -1, 0]]
+    return CutProjectScheme("Penrose rhombic", par, perp, window, hypercube_offset=offset,
+                            window_kind="sliced", shift=s, inflation_factor=TAU,
+                            rational_form=(u, v, [a, a * sin72], TAU), edge_length=a)
+
+
+def icosahedral(edge: float = 1.0, shift=None) -> CutProjectScheme:
+    """Three-dimensional Penrose (Ammann–Kramer) vertex set from Z⁶.
+
+    Parameters
+    ----------
+    edge : float
+        Rhombohedron edge length in Å.
+    shift : array_like (3,), optional
+        Phason shift of the rhombic-triacontahedron window.
+
+    Returns
+    -------
+    CutProjectScheme
+        Window Σ_j [−½, ½] e_j⊥ with volume 4√(5+2√5) = 12.310734 edge³ (REFERENCES.md);
+        module k = ½ Σ h_j e_j∥ / edge²; density 12.310734/8 = 1.538842 per edge³.
+    """
+    a = _edge(edge)
+    t = TAU
+    par_raw = np.array([[1, t, 0], [-1, t, 0], [0, 1, t], [0, -1, t], [t, 0, 1], [-t, 0, 1]], dtype=float)
+    tc = -1.0 / t  # Galois conjugate of τ
+    perp_raw = np.array([[1, tc, 0], [-1, tc, 0], [0, 1, tc], [0, -1, tc], [tc, 0, 1], [-tc, 0, 1]], dtype=float)
+    par = a * (par_raw / np.linalg.norm(par_raw, axis=1)[:, None]).T
+    perp = a * (perp_raw / np.linalg.norm(perp_raw, axis=1)[:, None]).T
+    offset = np.full(6, -0.5)
+    s = _shift(shift, 3)
+    window = canonical_window(perp, offset, "zonotope").translated(s)
+    norm = math.sqrt(1 + t * t)
+    u = [[1, -1, 0, 0, 0, 0], [0, 0, 1, -1, 0, 0], [0, 0, 0, 0, 1, 1]]
+    v = [[0, 0, 0, 0, 1, -1], [1, 1, 0, 0, 0, 0], [0, 0, 1, 1, 0, 0]]
+    return CutProjectScheme("icosahedral (Ammann–Kramer)", par, perp, window, hypercube_offset=offset,
+                            window_kind="zonotope", shift=s, inflation_factor=TAU,
+                            rational_form=(u, v, [a / norm] * 3, TAU), edge_length=a)
+
+
+def _model(scheme, radius, center, species):
+    return scheme.model(radius, center, species=species)
+
+
+def octagonal_model(radius, edge: float = 1.0, shift=None, center=None, species: str = "A"):
+    """A :class:`kinemap.Model` of an Ammann–Beenker patch of `radius` Å (see :func:`octagonal`)."""
+    return _model(octagonal(edge, shift), radius, center, species)
+
+
+def penrose_model(radius, edge: float = 1.0, shift=None, center=None, species: str = "A"):
+    """A :class:`kinemap.Model` of a Penrose rhombic patch of `radius` Å (see :func:`penrose`)."""
+    return _model(penrose(edge, shift), radius, center, species)
+
+
+def icosahedral_model(radius, edge: float = 1.0, shift=None, center=None, species: str = "A"):
+    """A :class:`kinemap.Model` of an icosahedral patch of `radius` Å (see :func:`icosahedral`)."""
+    return _model(icosahedral(edge, shift), radius, center, species)
+
+
+def fibonacci_ratio(n: int) -> tuple[int, int]:
+    """(F_{n+1}, F_n) with F_1 = F_2 = 1: the n-th rational approximation of τ."""
+    if not isinstance(n, (int, np.integer)) or n < 1:
+        raise InvalidInputError(f"`n` must be an integer >= 1, got {n!r}")
+    a, b = 1, 1
+    for _ in range(n - 1):
+        a, b = a + b, a
+    return a, b
+
+
+def pell_ratio(n: int) -> tuple[int, int]:
+    """(p, q) with p/q the n-th convergent of √2: 1/1, 3/2, 7/5, 17/12, …"""
+    if not isinstance(n, (int, np.integer)) or n < 1:
+        raise InvalidInputError(f"`n` must be an integer >= 1, got {n!r}")
+    p, q = 1, 1
+    for _ in range(n - 1):
+        p, q = p + 2 * q, p + q
+    return p, q
+
+
+def icosahedral_approximant(p: int, q: int, edge: float = 1.0, shift=None) -> CutProjectScheme:
+    """Cubic p/q approximant of the icosahedral set (τ replaced by p/q, e.g. 1/1, 2/1, 3/2).
+
+    Returns a periodic scheme; its :meth:`~CutProjectScheme.cell` is cubic with edge
+    proportional to (p τ + q)... see the scheme's periods. A default small generic shift is
+    advisable for approximants (rational internal projections put lattice points on window
+    faces); boundary points are otherwise decided by the regularisation rule.
+    """
+    return icosahedral(edge, shift).approximant((int(p), int(q)), name=f"icosahedral {p}/{q} approximant")
+
+
+__all__ = ["octagonal", "penrose", "icosahedral", "octagonal_model", "penrose_model", "icosahedral_model",
+           "icosahedral_approximant", "fibonacci_ratio", "pell_ratio", "TAU", "SILVER", "metallic_mean"]
