@@ -1,0 +1,102 @@
+"""Pictures: PNG files of the expected pixel size (matplotlib: pixels = inches × dpi), axes
+labels and colour limits from the data (NumPy), clear errors, no partial files."""
+
+import matplotlib
+
+matplotlib.use("Agg")
+
+import matplotlib.image as mpimg  # noqa: E402
+import matplotlib.pyplot as plt  # noqa: E402
+import numpy as np  # noqa: E402
+import pytest  # noqa: E402
+
+import kinemap as km  # noqa: E402
+from kinemap.errors import InvalidInputError  # noqa: E402
+from kinemap.plot import plot_map, plot_profile, plot_slice, render  # noqa: E402
+
+
+@pytest.fixture
+def model(rng):
+    return km.Model(rng.uniform(0, 8, (40, 3)), rng.choice(["Fe", "O"], 40).tolist())
+
+
+@pytest.mark.parametrize("size, dpi", [((4.0, 3.0), 50), ((6.4, 5.2), 100)])
+def test_plane_png_has_expected_size(tmp_path, model, size, dpi):
+    pat = km.scatter(model, km.QGrid.plane([-2, -2, 0], [4, 0, 0], [0, 4, 0], (30, 20)))
+    out = render(pat, tmp_path / "p.png", dpi=dpi, size=size)
+    img = mpimg.imread(out)
+    assert img.shape[:2] == (round(size[1] * dpi), round(size[0] * dpi))
+    assert [p.name for p in tmp_path.iterdir()] == ["p.png"]
+
+
+def test_profile_png(tmp_path, model):
+    pat = km.scatter(model, km.QGrid.line([0, 0, 0], [4, 1, 0], 50))
+    out = render(pat, tmp_path / "line.png", dpi=40, size=(5, 2.5), scale="linear")
+    assert mpimg.imread(out).shape[:2] == (100, 200)
+    fig = plot_profile(pat)
+    assert "Å⁻¹" in fig.axes[0].get_xlabel() and fig.axes[0].get_yscale() == "log"
+    plt.close(fig)
+
+
+def test_hkl_map_in_rlu_and_log_limits(model):
+    cell = np.diag([4.0, 5.0, 6.0])
+    pat = km.scatter(model, km.QGrid.hkl(cell, h=(-2, 2, 21), k=(-1, 3, 17), l=0.5))
+    fig = plot_map(pat)  # auto → r.l.u. for hkl grids
+    ax = fig.axes[0]
+    assert ax.get_xlabel() == "h (r.l.u.)" and ax.get_ylabel() == "k (r.l.u.)"
+    mesh = ax.collections[0]
+    assert mesh.norm.vmax == pytest.approx(pat.intensity.max())
+    assert mesh.norm.vmin == pytest.approx(max(pat.intensity[pat.intensity > 0].min(), 1e-8 * pat.intensity.max()))
+    assert "electrons²" in fig.axes[1].get_ylabel()  # colour bar label with units
+    plt.close(fig)
+    fig = plot_map(pat, axis_units="inv-angstrom", scale="linear")
+    assert "Å⁻¹" in fig.axes[0].get_xlabel()
+    plt.close(fig)
+
+
+def test_volume_slice(tmp_path, model):
+    pat = km.scatter(model, km.QGrid.volume([0, 0, 0], [2, 0, 0], [0, 2, 0], [0, 0, 2], (8, 9, 10)))
+    fig = plot_slice(pat, slice_axis="w", slice_index=3)
+    assert "w = " in fig.axes[0].get_title()
+    z = fig.axes[0].collections[0].get_array()
+    np.testing.assert_allclose(np.sort(np.asarray(z).ravel()), np.sort(pat.intensity[:, :, 3].ravel()))
+    plt.close(fig)
+    with pytest.raises(InvalidInputError, match=r"`slice_index` 12 is outside 0..9"):
+        plot_slice(pat, slice_axis=2, slice_index=12)
+    render(pat, tmp_path / "v.png", dpi=30, size=(3, 3))
+
+
+def test_bad_requests(tmp_path, model):
+    grid = km.QGrid.plane([0, 0, 0], [1, 0, 0], [0, 1, 0], (4, 4))
+    zero = km.Pattern(grid, intensity=np.zeros((4, 4)))
+    with pytest.raises(InvalidInputError, match="log scale needs positive values"):
+        render(zero, tmp_path / "z.png")
+    render(zero, tmp_path / "z.png", scale="linear")
+    with pytest.raises(InvalidInputError, match="needs an amplitude"):
+        plot_map(zero, quantity="phase")
+    pts = km.scatter(model, km.QGrid.points(np.zeros((2, 3, 3))))
+    with pytest.raises(InvalidInputError, match="arbitrary q-points"):
+        render(pts, tmp_path / "pts.png")
+    with pytest.raises(InvalidInputError, match="a profile needs a 1-D line or hkl grid"):
+        render(km.scatter(model, km.QGrid.points(np.zeros((3, 3)))), tmp_path / "pts.png")
+    with pytest.raises(InvalidInputError, match="`scale` must be one of"):
+        plot_map(zero, scale="sqrt")
+    with pytest.raises(InvalidInputError, match="reciprocal-lattice units need an hkl grid"):
+        plot_map(zero, axis_units="rlu", scale="linear")
+    with pytest.raises(OSError, match="does not exist"):
+        render(zero, tmp_path / "no" / "z.png", scale="linear")
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["z.png"]
+
+
+def test_interrupted_render_leaves_nothing(tmp_path, model, monkeypatch):
+    pat = km.scatter(model, km.QGrid.plane([0, 0, 0], [1, 0, 0], [0, 1, 0], (5, 5)))
+
+    def broken(self, fname, **kw):
+        with open(fname, "wb") as fh:
+            fh.write(b"\x89PNG partial")
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(matplotlib.figure.Figure, "savefig", broken)
+    with pytest.raises(KeyboardInterrupt):
+        render(pat, tmp_path / "i.png")
+    assert list(tmp_path.iterdir()) == []
