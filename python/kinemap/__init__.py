@@ -17,6 +17,8 @@ from .pattern import Pattern, load_pattern
 from .probes import get_probe
 from .qgrid import QGrid
 from .scatter import KinematicApproximationWarning, scatter
+from .io import open_model, write_h5md
+from .frames import FrameAverages, average_frames
 
 __all__ = [
     "__version__",
@@ -30,4 +32,8 @@ __all__ = [
     "InvalidInputError",
     "ModelFileError",
     "KinematicApproximationWarning",
+    "open_model",
+    "write_h5md",
+    "average_frames",
+    "FrameAverages",
 ]
