@@ -190,7 +190,10 @@ class StripEnumerator:
                     buf_y.append(y)
                     held += len(n)
                 if held >= chunk_points:
-                    yield np.concatenate(buf_n), np.concatenate(buf_x), np.concatenate(buf_y)
-                    buf_n, buf_x, buf_y, held = [], [], [], 0
+                    an, ax, ay = np.concatenate(buf_n), np.concatenate(buf_x), np.concatenate(buf_y)
+                    while len(an) >= chunk_points:
+                        yield an[:chunk_points], ax[:chunk_points], ay[:chunk_points]
+                        an, ax, ay = an[chunk_points:], ax[chunk_points:], ay[chunk_points:]
+                    buf_n, buf_x, buf_y, held = [an], [ax], [ay], len(an)
         if held:
             yield np.concatenate(buf_n), np.concatenate(buf_x), np.concatenate(buf_y)

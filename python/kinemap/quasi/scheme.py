@@ -597,9 +597,27 @@ def reduce_periods(basis: np.ndarray, parallel: np.ndarray) -> np.ndarray:
                     break
                 chosen = chosen[:-1]
     if len(chosen) != d:
-        return b
-    out = np.array(chosen, dtype=np.int64)
-    # right-handed for d = 2, 3 (physical orientation)
+        return _orient_periods(b, parallel)
+    return _orient_periods(np.array(chosen, dtype=np.int64), parallel)
+
+
+def _orient_periods(periods: np.ndarray, parallel: np.ndarray) -> np.ndarray:
+    """Order and sign period vectors: each along +(its dominant Cartesian axis) when the
+    dominant axes differ, else the largest component positive; right-handed for d ≥ 2."""
+    out = periods.copy()
+    d = len(out)
+    vec = out @ parallel.T
+    axis = []
+    for i in range(d):
+        a = np.abs(vec[i])
+        j = int(np.flatnonzero(a >= a.max() * (1 - 1e-9))[0])
+        # a clear winner only (ties like (1, 1) directions have none)
+        second = np.sort(a)[-2] if len(a) > 1 else 0.0
+        axis.append(j if a[j] > second * (1 + 1e-6) else -1)
+        if vec[i, j] < 0:
+            out[i] = -out[i]
+    if -1 not in axis and len(set(axis)) == d:
+        out = out[np.argsort(axis)]
     if d >= 2 and np.linalg.det(out @ parallel.T) < 0:
         out[-1] = -out[-1]
     return out
