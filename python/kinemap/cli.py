@@ -216,6 +216,11 @@ def _check_writable(path, what: str = "output") -> Path:
     return p
 
 
+def _check_png(args, grid) -> None:
+    if args.png and not grid.is_regular:
+        raise UsageError("--png needs a regular grid (plane, volume, line or hkl); a --points map has no layout to draw")
+
+
 def _say(args, text: str) -> None:
     if not getattr(args, "quiet", False):
         print(text)
@@ -259,6 +264,7 @@ def _cmd_map(args) -> int:
     png = _check_writable(out.with_suffix(".png"), "picture") if args.png else None
     source = open_model(args.model, frame=args.frame, **_open_options(args))
     grid = _build_grid(args, source)
+    _check_png(args, grid)
     probe_opts = _probe_options(args)
     _say(args, f"model: {source.path} (frame {source.frame} of {source.n_frames}, {source.n_atoms} atoms)")
     _say(args, f"grid: {grid.kind} {tuple(grid.shape)} = {grid.size} q-points; probe {args.probe}")
@@ -287,6 +293,7 @@ def _cmd_average(args) -> int:
         _check_writable(prefix.parent / f"{prefix.name}_{part}.h5")
     source = open_model(args.model, **_open_options(args))
     grid = _build_grid(args, source)
+    _check_png(args, grid)
     probe_opts = _probe_options(args)
     _say(args, f"model: {source.path} ({source.n_frames} frames, {source.n_atoms} atoms in frame 0)")
     with warnings.catch_warnings(record=True) as caught:

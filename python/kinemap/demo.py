@@ -106,7 +106,7 @@ def run_demo(output="kinemap-demo-output", *, threads=None, progress: bool = Tru
     from . import __version__
     from .frames import average_frames
     from .io import open_model, write_h5md
-    from .plot import _plt, plot_profile, render
+    from .plot import new_figure, plot_profile, render, save_figure
     from .qgrid import QGrid
 
     say = (lambda *a: None) if quiet else print
@@ -149,14 +149,15 @@ def run_demo(output="kinemap-demo-output", *, threads=None, progress: bool = Tru
     for name, pat in avg.parts().items():
         files[f"{name}_png"] = render(pat, out / f"plane_{name}.png", scale="log",
                                       title=f"{name}: invented Al-Co octagonal layer, {n_frames} frames")
-    plt = _plt()
-    fig, ax = plt.subplots(figsize=(6.4, 4.0), layout="constrained")
+    fig = new_figure(6.4, 4.0)
+    ax = fig.add_subplot()
     plot_profile(lavg.bragg, ax, scale="log", label="Bragg |<A>|^2")
     plot_profile(lavg.diffuse, ax, scale="log", label="diffuse <|A|^2> - |<A>|^2",
                  title="along q_x: Bragg peaks and the diffuse background rising with q")
     ax.set_ylabel("intensity (electrons²)")
-    files["profile_png"] = _save_fig(fig, out / "profile_qx.png")
-    fig, ax = plt.subplots(figsize=(6.0, 6.0), layout="constrained")
+    files["profile_png"] = save_figure(fig, out / "profile_qx.png")
+    fig = new_figure(6.0, 6.0)
+    ax = fig.add_subplot()
     m = frames[0]
     for lab, colour, size in (("Al", "#8fa3bf", 6), ("Co", "#c0392b", 9)):
         sel = m.species == lab
@@ -166,7 +167,7 @@ def run_demo(output="kinemap-demo-output", *, threads=None, progress: bool = Tru
     ax.set_ylabel("y (Å)")
     ax.set_title("frame 0 of the demo model (invented Al-Co decoration)", fontsize=10)
     ax.legend(loc="upper right", markerscale=2)
-    files["model_png"] = _save_fig(fig, out / "model.png")
+    files["model_png"] = save_figure(fig, out / "model.png")
 
     dt = time.perf_counter() - t0
     say(f"done in {dt:.1f} s. Files in {out.resolve()}:")
@@ -186,27 +187,6 @@ def run_demo(output="kinemap-demo-output", *, threads=None, progress: bool = Tru
     say("next: kinemap info " + str(files["bragg"]) + "   |   kinemap render " + str(files["diffuse"])
         + " --scale linear -o diffuse_linear.png")
     return files
-
-
-def _save_fig(fig, path: Path) -> Path:
-    import os
-
-    from .pattern import atomic_output
-    from .plot import _plt
-
-    final, tmp = atomic_output(path)
-    try:
-        fig.savefig(tmp, format="png")
-        os.replace(tmp, final)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        raise
-    finally:
-        _plt().close(fig)
-    return final
 
 
 __all__ = ["run_demo", "build_frames"]

@@ -25,16 +25,35 @@ QUANTITIES = ("intensity", "amplitude-abs", "amplitude-real", "amplitude-imag", 
 
 
 def _plt():
-    import matplotlib
-
-    if matplotlib.get_backend().lower() not in ("agg", "module://matplotlib_inline.backend_inline"):
-        try:
-            matplotlib.use("Agg", force=True)
-        except Exception:  # pragma: no cover - backend already fixed by the user
-            pass
+    """pyplot, for figures made when the caller gives no axes (the user's backend)."""
     import matplotlib.pyplot as plt
 
     return plt
+
+
+def new_figure(width: float, height: float, dpi: int = 100):
+    """A figure drawn by the Agg renderer, independent of pyplot and its backend (files only)."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=(width, height), dpi=dpi, layout="constrained")
+    FigureCanvasAgg(fig)
+    return fig
+
+
+def save_figure(fig, path, dpi: int | None = None) -> Path:
+    """Write `fig` as PNG under a temporary name, renamed when complete."""
+    final, tmp = atomic_output(path)
+    try:
+        fig.savefig(tmp, format="png", dpi=dpi if dpi is not None else fig.dpi)
+        os.replace(tmp, final)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except OSError:
+            pass
+        raise
+    return final
 
 
 def _values(pattern: Pattern, quantity: str) -> tuple[np.ndarray, str]:
@@ -169,7 +188,6 @@ def plot_map(pattern: Pattern, ax=None, *, scale: str = "log", axis_units: str =
     _check("scale", scale, SCALES)
     _check("axis_units", axis_units, AXIS_UNITS)
     _check("quantity", quantity, QUANTITIES)
-    plt = _plt()
     g = pattern.grid
     if not g.is_regular:
         raise InvalidInputError("maps on arbitrary q-points have no 2-D layout to draw; use a plane, hkl or volume grid")
@@ -177,7 +195,7 @@ def plot_map(pattern: Pattern, ax=None, *, scale: str = "log", axis_units: str =
     values, label = _values(pattern, quantity)
     z = np.asarray(values[sel], dtype=np.float64)
     if ax is None:
-        fig, ax = plt.subplots(figsize=(6.4, 5.2), layout="constrained")
+        fig, ax = _plt().subplots(figsize=(6.4, 5.2), layout="constrained")
     else:
         fig = ax.figure
     norm = _norm(z, scale if quantity != "phase" else "linear", vmin, vmax)
@@ -246,13 +264,12 @@ def plot_profile(pattern: Pattern, ax=None, *, scale: str = "log", axis_units: s
     _check("scale", scale, SCALES)
     _check("axis_units", axis_units, AXIS_UNITS)
     _check("quantity", quantity, QUANTITIES)
-    plt = _plt()
     g = pattern.grid
     if len(g.shape) != 1 or not g.is_regular:
         raise InvalidInputError(f"a profile needs a 1-D line or hkl grid; this map has shape {g.shape} ({g.kind})")
     values, vlabel = _values(pattern, quantity)
     if ax is None:
-        fig, ax = plt.subplots(figsize=(6.4, 4.0), layout="constrained")
+        fig, ax = _plt().subplots(figsize=(6.4, 4.0), layout="constrained")
     else:
         fig = ax.figure
     use_rlu = axis_units == "rlu" or (axis_units == "auto" and g.kind == "hkl")
@@ -313,7 +330,6 @@ def render(pattern: Pattern, path, *, dpi: int = 100, size=(6.4, 5.2), **options
     OSError
         An unwritable output path.
     """
-    plt = _plt()
     if isinstance(dpi, bool) or not isinstance(dpi, (int, np.integer)) or not 10 <= dpi <= 1200:
         raise InvalidInputError(f"`dpi` must be a whole number in 10..1200, got {dpi!r}")
     try:
@@ -322,33 +338,17 @@ def render(pattern: Pattern, path, *, dpi: int = 100, size=(6.4, 5.2), **options
         raise InvalidInputError(f"`size` must be (width, height) in inches, got {size!r}") from None
     if not (0.5 <= w <= 50 and 0.5 <= h <= 50):
         raise InvalidInputError(f"`size` must be between 0.5 and 50 inches each way, got {size!r}")
-    final, tmp = atomic_output(path)
-    fig = None
-    try:
-        fig = plt.figure(figsize=(w, h), dpi=dpi, layout="constrained")
-        ax = fig.add_subplot()
-        nd = len(pattern.grid.shape)
-        if nd == 1:
-            options.pop("slice_axis", None)
-            options.pop("slice_index", None)
-            options.pop("cmap", None)
-            options.pop("vmin", None)
-            options.pop("vmax", None)
-            plot_profile(pattern, ax, **options)
-        else:
-            plot_map(pattern, ax, **options)
-        fig.savefig(tmp, format="png", dpi=dpi)
-        os.replace(tmp, final)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        raise
-    finally:
-        if fig is not None:
-            plt.close(fig)
+    atomic_output(path)[1].unlink()  # fail early on an unwritable path
+    fig = new_figure(w, h, dpi)
+    ax = fig.add_subplot()
+    if len(pattern.grid.shape) == 1:
+        for key in ("slice_axis", "slice_index", "cmap", "vmin", "vmax"):
+            options.pop(key, None)
+        plot_profile(pattern, ax, **options)
+    else:
+        plot_map(pattern, ax, **options)
+    final = save_figure(fig, path, dpi)
     return final
 
 
-__all__ = ["plot_map", "plot_profile", "plot_slice", "render", "SCALES", "AXIS_UNITS", "QUANTITIES"]
+__all__ = ["plot_map", "plot_profile", "plot_slice", "render", "new_figure", "save_figure", "SCALES", "AXIS_UNITS", "QUANTITIES"]
