@@ -250,3 +250,41 @@ def test_subprocess(tmp_path, traj):
                          capture_output=True, text=True, env=env, timeout=120)
     assert bad.returncode == 3
     assert bad.stderr.strip() == f"kinemap: error: no such file: {str(tmp_path / 'none.h5md')!r}"
+
+
+def test_points_files_and_volume_slice(tmp_path, traj, capsys):
+    path, frames = traj
+    q = np.array([[0.0, 0.0, 0.0], [1.0, 0.5, -0.2], [-2.0, 0.1, 0.3]])
+    np.save(tmp_path / "q.npy", q)
+    np.savetxt(tmp_path / "q.txt", q)
+    ref = numpy_amplitude(frames[0].positions, q, np.ones((3, 120)))
+    for name in ("q.npy", "q.txt"):
+        out = tmp_path / f"{name}.h5"
+        assert main(["map", str(path), "--points", str(tmp_path / name), "--probe", "unit", "-o", str(out),
+                     "--no-progress", "-q"]) == 0
+        np.testing.assert_allclose(km.load_pattern(out).amplitude, ref, rtol=1e-10, atol=1e-9 * np.abs(ref).max())
+    assert main(["map", str(path), "--points", str(tmp_path / "q.npy"), "--png", "-o", str(tmp_path / "x.h5")]) == 2
+    assert "--png needs a regular grid" in _err_line(capsys)
+    vol = tmp_path / "v.h5"
+    assert main(["map", str(path), "--volume", "0,0,0", "1,0,0", "0,1,0", "0,0,1", "--size", "4,5,6",
+                 "-o", str(vol), "--no-progress", "-q"]) == 0
+    assert main(["render", str(vol), "--slice-axis", "u", "--slice-index", "-1", "-o", str(tmp_path / "v.png"),
+                 "-q"]) == 0
+    assert (tmp_path / "v.png").exists()
+    assert main(["map", str(path), "--line", "0,0,0", "1,0,0", "--size", "3", "--threads", "0",
+                 "-o", str(tmp_path / "t.h5"), "--no-progress"]) == 1
+    assert "`threads` must be a whole number >= 1" in _err_line(capsys)
+
+
+@pytest.mark.parametrize("text", ["3,4,5,80,95,105", "3,3,5,90,90,120"])
+def test_cell_from_lengths_and_angles(text):
+    from kinemap.cli import _cell
+
+    a, b, c, al, be, ga = (float(x) for x in text.split(","))
+    cell = _cell(text)
+    # Metric tensor G_ij = a_i·a_j (International Tables Vol. A/B, standard definition).
+    cos = np.cos(np.radians([al, be, ga]))
+    g = np.array([[a * a, a * b * cos[2], a * c * cos[1]],
+                  [a * b * cos[2], b * b, b * c * cos[0]],
+                  [a * c * cos[1], b * c * cos[0], c * c]])
+    np.testing.assert_allclose(cell @ cell.T, g, atol=1e-12)

@@ -295,3 +295,13 @@ def test_chunk_species_groups_match_model(tmp_path, rng):
     g1 = chunk.groups()
     g2 = km.Model(chunk.positions, list(chunk.species)).groups()
     assert [g1.labels[i] for i in g1.index] == [g2.labels[i] for i in g2.index]
+
+
+def test_convert_refuses_changing_atom_count(tmp_path):
+    (tmp_path / "n.xyz").write_text("1\n\nFe 0 0 0\n2\n\nFe 0 0 0\nFe 1 1 1\n")
+    with pytest.raises(ModelFileError, match=r"frame 1 has 2 atoms but frame 0 has 1"):
+        convert(tmp_path / "n.xyz", tmp_path / "n.h5md")
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["n.xyz"]
+    # Averaging does not need equal counts: each frame is its own sum.
+    avg = km.average_frames(tmp_path / "n.xyz", km.QGrid.points([[0.0, 0, 0]]), probe="unit")
+    assert avg.total.intensity[0] == pytest.approx((1 + 4) / 2)  # (|1|² + |2|²)/2 at q = 0
