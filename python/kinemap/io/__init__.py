@@ -41,8 +41,6 @@ def detect_format(path) -> str:
     ModelFileError
         When the format cannot be told.
     """
-    import h5py
-
     p = Path(path)
     if not p.exists():
         raise FileNotFoundError(f"no such file: {str(p)!r}")
@@ -59,7 +57,6 @@ def detect_format(path) -> str:
             if "particles" in f or "h5md" in f:
                 return "h5md"
             return "hdf5"
-        raise AssertionError  # pragma: no cover
     name = p.name.lower()
     suffix = p.suffix.lower()
     if suffix in (".xyz", ".extxyz"):
