@@ -379,7 +379,11 @@ class H5MDSource(AtomSource):
         return ix.species_table.label_index(raw, start, self.frame), ix.species_table.distinct
 
     def species_labels(self) -> list[str]:
-        """Sorted distinct labels of the species present (one streamed pass, cached)."""
+        """Sorted distinct labels of the species present (one streamed pass, cached; shared
+        by all frames when the species do not depend on time)."""
+        static = not self._ix.species.time_dependent
+        if self._labels is None and static and getattr(self._ix, "static_labels", None) is not None:
+            self._labels = list(self._ix.static_labels)
         if self._labels is None:
             present: set[str] = set()
             with self._open() as f:
@@ -390,6 +394,8 @@ class H5MDSource(AtomSource):
                     counts = np.bincount(idx, minlength=len(labels))
                     present.update(lab for lab, c in zip(labels, counts) if c)
             self._labels = sorted(present)
+            if static:
+                self._ix.static_labels = list(self._labels)
         return list(self._labels)
 
     def species_counts(self) -> dict[str, int]:
