@@ -134,3 +134,11 @@ def test_bad_arguments(rng):
         average_frames(frames, grid, frames=[4], probe="unit")
     with pytest.raises(InvalidInputError, match="holds no frames"):
         average_frames([], grid)
+
+
+def test_progress_bar_runs(rng, capsys):
+    frames = [km.Model(rng.uniform(0, 5, (10, 3)), "C") for _ in range(2)]
+    avg = average_frames(frames, km.QGrid.line([0, 0, 0], [1, 0, 0], 5), probe="unit", progress=True)
+    # q = 0: A = N for every frame (the sum of ten unit scatterers).
+    assert avg.bragg.intensity[0] == pytest.approx(100.0, rel=1e-14)
+    assert "frame 2/2" in capsys.readouterr().err

@@ -133,7 +133,8 @@ def average_frames(model, grid: QGrid, frames=None, probe="xray", method: str = 
     probe, method, tol, threads, chunk_atoms, **probe_options
         As in :func:`kinemap.scatter`; the same for every frame.
     progress : bool or callable
-        True shows a progress bar over frames; a callable receives ``(frames_done, n_frames)``.
+        True shows one progress bar over all frames (atom–q pairs, with the frame count in
+        its label); a callable receives ``(frames_done, n_frames)`` after each frame.
     open_options : dict, optional
         Keyword arguments for :func:`kinemap.open_model` when `model` is a path
         (``species_map``, ``group``, ``format``, ...).
@@ -169,7 +170,7 @@ def average_frames(model, grid: QGrid, frames=None, probe="xray", method: str = 
     if progress is True:
         from tqdm.auto import tqdm
 
-        bar = tqdm(total=n, unit="frame", desc="frames")
+        bar = tqdm(total=None, unit="pair", unit_scale=True, desc=f"frame 1/{n}")
     elif callable(progress):
         callback = progress
     elif progress not in (False, None):
@@ -178,18 +179,25 @@ def average_frames(model, grid: QGrid, frames=None, probe="xray", method: str = 
     descriptions = []
     try:
         for k, src in enumerate(sources):
+            inner = False
+            if bar is not None:
+                bar.set_description(f"frame {k + 1}/{n}")
+
+                def inner(done, total, k=k):
+                    if bar.total is None and total:
+                        bar.total = total * n
+                    bar.n = k * total + done
+                    bar.refresh()
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore", KinematicApproximationWarning)
                 pat = scatter(src, grid, probe=probe_obj, method=method, tol=tol, threads=threads,
-                              progress=False, chunk_atoms=chunk_atoms)
+                              progress=inner, chunk_atoms=chunk_atoms)
             a = pat.amplitude
             sum_a += a
             sum_i += a.real * a.real + a.imag * a.imag
             if first_meta is None:
                 first_meta = pat.metadata
             descriptions.append(pat.metadata.get("model", {}))
-            if bar is not None:
-                bar.update(1)
             if callback is not None:
                 callback(k + 1, n)
     finally:
