@@ -65,6 +65,9 @@ fn grid_points(origin: [f64; 3], steps: &[[f64; 3]], shape: &[usize]) -> Vec<[f6
         .collect()
 }
 
+/// Origin, step vectors and shape of a regular grid.
+type GridCase = ([f64; 3], Vec<[f64; 3]>, Vec<usize>);
+
 const TOLS: [f64; 4] = [1e-3, 1e-6, 1e-9, 1e-12];
 
 #[test]
@@ -72,7 +75,7 @@ fn regular_grids_meet_the_tolerance() {
     let (pos, w) = model(400, 30.0, 1);
     // A volume with skewed axes, a plane not aligned with any axis, a line, and a grid with a
     // length-1 axis (which drops out).
-    let cases: Vec<([f64; 3], Vec<[f64; 3]>, Vec<usize>)> = vec![
+    let cases: Vec<GridCase> = vec![
         (
             [-1.0, 0.3, 0.2],
             vec![[0.11, 0.01, 0.0], [0.02, 0.09, 0.03], [0.0, -0.01, 0.13]],

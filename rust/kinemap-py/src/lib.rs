@@ -4,6 +4,7 @@
 
 mod arrays;
 mod errors;
+mod gridded;
 
 use errors::CoreErr;
 use numpy::{Complex64, IntoPyArray, PyArray1, PyReadonlyArray1, PyReadonlyArray2};
@@ -99,6 +100,8 @@ fn grid_amplitudes_py<'py>(
 mod _core {
     #[pymodule_export]
     use super::grid_amplitudes_py;
+    #[pymodule_export]
+    use super::gridded::{gridded_kernel_width_py, PyPointPlan, PyRegularPlan};
     #[pymodule_export]
     use super::point_amplitudes_py;
     #[pymodule_export]

@@ -305,7 +305,8 @@ impl PointPlan {
                 "atom bounds are inverted: lo {lo:?}, hi {hi:?}"
             )));
         }
-        let kernel = Kernel::new(tol, upsample)?;
+        // Two approximation stages (spreading and interpolation) share the error budget.
+        let kernel = Kernel::new(0.5 * tol, upsample)?;
         let w = kernel.w;
         let (mut qlo, mut qhi) = ([f64::INFINITY; 3], [f64::NEG_INFINITY; 3]);
         for v in q {
@@ -328,7 +329,7 @@ impl PointPlan {
                 let a = real[*i];
                 // Margins as in Barnett et al.: the spread support stays inside one period.
                 let nfd = 2.0 * upsample * s[a] * x[a] / PI + (w + 1) as f64;
-                if !(nfd < 1e9) {
+                if nfd.is_nan() || nfd >= 1e9 {
                     return Err(Error::Range(format!(
                         "q-points span {:.3e} 1/Å and atoms {:.3e} Å along axis {a}: too large for the gridded path",
                         2.0 * s[a],

@@ -1,0 +1,184 @@
+//! Bindings of the gridded fast path: plans that keep one fine grid per scattering group,
+//! fed atom chunk by atom chunk, then finished group by group.
+
+use crate::arrays;
+use crate::errors::{invalid, CoreErr};
+use numpy::{Complex64, IntoPyArray, PyArray1, PyReadonlyArray1, PyReadonlyArray2};
+use pyo3::prelude::*;
+
+fn vec3(a: &PyReadonlyArray1<'_, f64>, name: &str) -> PyResult<[f64; 3]> {
+    let s = arrays::slice1(a, name, Some(3))?;
+    Ok([s[0], s[1], s[2]])
+}
+
+/// RegularPlan(origin, steps, shape, tol, upsample): gridded sums on the regular grid
+/// origin + Σ i_a steps[a] (Å⁻¹), i_a < shape[a], to relative tolerance `tol`.
+#[pyclass(name = "RegularPlan", module = "kinemap._core")]
+pub struct PyRegularPlan {
+    inner: kinemap_core::RegularPlan,
+}
+
+#[pymethods]
+impl PyRegularPlan {
+    #[new]
+    fn new<'py>(
+        origin: PyReadonlyArray1<'py, f64>,
+        steps: PyReadonlyArray2<'py, f64>,
+        shape: Vec<usize>,
+        tol: f64,
+        upsample: f64,
+    ) -> PyResult<Self> {
+        let o = vec3(&origin, "origin")?;
+        let st = if shape.is_empty() {
+            &[][..]
+        } else {
+            arrays::vectors(&steps, "steps")?
+        };
+        let inner =
+            kinemap_core::RegularPlan::new(o, st, &shape, tol, upsample).map_err(CoreErr)?;
+        Ok(PyRegularPlan { inner })
+    }
+
+    /// Complex values in one group's fine grid.
+    #[getter]
+    fn fine_len(&self) -> usize {
+        self.inner.fine_len()
+    }
+
+    /// Fine-grid shape (3 entries; 1 on unused axes).
+    #[getter]
+    fn fine_dims(&self) -> (usize, usize, usize) {
+        let d = self.inner.fine_dims();
+        (d[0], d[1], d[2])
+    }
+
+    /// Kernel width in grid points.
+    #[getter]
+    fn width(&self) -> usize {
+        self.inner.width()
+    }
+
+    /// add(positions, weights, slots, *, threads=None): spread atoms (Å) with q-independent
+    /// weights into the fine grid of their slot (group).
+    #[pyo3(signature = (positions, weights, slots, *, threads=None))]
+    fn add<'py>(
+        &mut self,
+        py: Python<'py>,
+        positions: PyReadonlyArray2<'py, f64>,
+        weights: PyReadonlyArray1<'py, f64>,
+        slots: PyReadonlyArray1<'py, u32>,
+        threads: Option<usize>,
+    ) -> PyResult<()> {
+        let pos = arrays::vectors(&positions, "positions")?;
+        let w = arrays::slice1(&weights, "weights", Some(pos.len()))?;
+        let s = arrays::slice1(&slots, "slots", Some(pos.len()))?;
+        let inner = &mut self.inner;
+        py.detach(|| inner.add(pos, w, s, threads))
+            .map_err(CoreErr)?;
+        Ok(())
+    }
+
+    /// finish(slot, *, threads=None) -> complex128 (M,): the group sums Σ w_j exp(i q·r_j) on
+    /// the grid (C order); frees the slot's fine grid.
+    #[pyo3(signature = (slot, *, threads=None))]
+    fn finish<'py>(
+        &mut self,
+        py: Python<'py>,
+        slot: usize,
+        threads: Option<usize>,
+    ) -> PyResult<Bound<'py, PyArray1<Complex64>>> {
+        let inner = &mut self.inner;
+        let out = py.detach(|| inner.finish(slot, threads)).map_err(CoreErr)?;
+        Ok(out.into_pyarray(py))
+    }
+}
+
+/// PointPlan(q, lo, hi, tol, upsample): gridded (type-3) sums at arbitrary q-points (M, 3)
+/// for atoms inside the box lo ≤ r ≤ hi (Å).
+#[pyclass(name = "PointPlan", module = "kinemap._core")]
+pub struct PyPointPlan {
+    inner: kinemap_core::PointPlan,
+}
+
+#[pymethods]
+impl PyPointPlan {
+    #[new]
+    fn new<'py>(
+        py: Python<'py>,
+        q: PyReadonlyArray2<'py, f64>,
+        lo: PyReadonlyArray1<'py, f64>,
+        hi: PyReadonlyArray1<'py, f64>,
+        tol: f64,
+        upsample: f64,
+    ) -> PyResult<Self> {
+        let qv = arrays::vectors(&q, "q")?;
+        let (l, h) = (vec3(&lo, "lo")?, vec3(&hi, "hi")?);
+        let inner = py
+            .detach(|| kinemap_core::PointPlan::new(qv, l, h, tol, upsample))
+            .map_err(CoreErr)?;
+        Ok(PyPointPlan { inner })
+    }
+
+    /// Complex values of the spreading grid (one per group) and of the interpolation grid.
+    #[getter]
+    fn fine_lens(&self) -> (usize, usize) {
+        self.inner.fine_lens()
+    }
+
+    /// Shapes of the spreading and interpolation grids.
+    #[getter]
+    fn fine_dims(&self) -> ((usize, usize, usize), (usize, usize, usize)) {
+        let (a, b) = self.inner.fine_dims();
+        ((a[0], a[1], a[2]), (b[0], b[1], b[2]))
+    }
+
+    /// Kernel width in grid points.
+    #[getter]
+    fn width(&self) -> usize {
+        self.inner.width()
+    }
+
+    /// add(positions, weights, slots, *, threads=None): spread atoms into their slot's grid.
+    #[pyo3(signature = (positions, weights, slots, *, threads=None))]
+    fn add<'py>(
+        &mut self,
+        py: Python<'py>,
+        positions: PyReadonlyArray2<'py, f64>,
+        weights: PyReadonlyArray1<'py, f64>,
+        slots: PyReadonlyArray1<'py, u32>,
+        threads: Option<usize>,
+    ) -> PyResult<()> {
+        let pos = arrays::vectors(&positions, "positions")?;
+        let w = arrays::slice1(&weights, "weights", Some(pos.len()))?;
+        let s = arrays::slice1(&slots, "slots", Some(pos.len()))?;
+        let inner = &mut self.inner;
+        py.detach(|| inner.add(pos, w, s, threads))
+            .map_err(CoreErr)?;
+        Ok(())
+    }
+
+    /// finish(slot, *, threads=None) -> complex128 (M,): group sums at the plan's q-points.
+    #[pyo3(signature = (slot, *, threads=None))]
+    fn finish<'py>(
+        &mut self,
+        py: Python<'py>,
+        slot: usize,
+        threads: Option<usize>,
+    ) -> PyResult<Bound<'py, PyArray1<Complex64>>> {
+        let inner = &mut self.inner;
+        let out = py.detach(|| inner.finish(slot, threads)).map_err(CoreErr)?;
+        Ok(out.into_pyarray(py))
+    }
+}
+
+/// gridded_kernel_width(tol, upsample) -> int: kernel points per axis the gridded path uses
+/// for a tolerance and oversampling factor (may exceed the supported maximum, 16).
+#[pyfunction(name = "gridded_kernel_width")]
+pub fn gridded_kernel_width_py(tol: f64, upsample: f64) -> PyResult<usize> {
+    if !(tol.is_finite() && tol > 0.0 && upsample.is_finite() && upsample > 1.0) {
+        return Err(invalid(format!(
+            "need tol > 0 and upsample > 1, got {tol}, {upsample}"
+        )));
+    }
+    Ok(kinemap_core::gridded::width_for(tol, upsample))
+}
