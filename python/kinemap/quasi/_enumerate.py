@@ -127,7 +127,7 @@ class StripEnumerator:
             cols = [new] + [cc[rep] for cc in cols]
         return np.column_stack(cols) if cols[0].size else np.zeros((0, d), dtype=np.int64)
 
-    def iter_chunks(self, center, radius: float, chunk_points: int = 1 << 20, accept=None):
+    def iter_chunks(self, center, radius: float, chunk_points: int = 1 << 20, accept=None, window_offset=None):
         """Yield ``(n, x, y)`` chunks: integer indices (K, D), parallel (K, d) and internal
         (K, e) coordinates of the accepted points, in a deterministic order.
 
@@ -139,14 +139,18 @@ class StripEnumerator:
         chunk_points : int
             Soft target for points per yielded chunk.
         accept : callable, optional
-            ``accept(n, x, y) -> bool mask`` replacing the window test (used for phason
-            disorder; the window passed at construction then only bounds the search).
+            ``accept(n, x, y) -> bool mask`` applied after the window test (used for phason
+            disorder, where the window passed at construction only bounds the search).
+        window_offset : array_like (e,), optional
+            Use the window translated by this vector (saves rebuilding the enumerator).
         """
         c = np.asarray(center, dtype=np.float64).reshape(self.d)
         rho = float(radius)
         if not (np.isfinite(rho) and rho >= 0):
             raise InvalidInputError(f"`radius` must be a finite number >= 0, got {radius!r}")
-        c_prime = c - self.t @ self.w_center
+        off = np.zeros(self.e) if window_offset is None else np.asarray(window_offset, dtype=np.float64).reshape(self.e)
+        bmin = self.bmin + self.qb_inv @ off
+        c_prime = c - self.t @ (self.w_center + off)
         rho_prime = rho + self.t_reach + 1e-9 * max(1.0, rho)
         z = self.qr_q.T @ c_prime
         lo, hi = self._outer_range(z, rho_prime)
@@ -168,7 +172,7 @@ class StripEnumerator:
             for s0 in range(0, len(a_pts), per_block):
                 blk = a_pts[s0:s0 + per_block]
                 ya = blk @ qa.T
-                start = np.ceil(self.bmin - ya @ self.qb_inv.T - 1e-9).astype(np.int64)
+                start = np.ceil(bmin - ya @ self.qb_inv.T - 1e-9).astype(np.int64)
                 mb = (start[:, None, :] + self.offsets_b[None, :, :]).reshape(-1, self.e)
                 ma = np.repeat(blk, len(self.offsets_b), axis=0)
                 n = np.empty((len(mb), self.D), dtype=np.int64)
@@ -176,7 +180,7 @@ class StripEnumerator:
                 n[:, self.b_idx] = mb
                 nf = n.astype(np.float64)
                 y = nf @ self.q.T
-                ok = self.window.contains(y)
+                ok = self.window.contains(y - off)
                 n, nf, y = n[ok], nf[ok], y[ok]
                 x = nf @ self.p.T
                 ok = np.einsum("ij,ij->i", x - c, x - c) <= rho * rho * (1 + 1e-12)

@@ -20,6 +20,7 @@ d Cartesian axes of q); only an isotropic scale is fitted.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 from itertools import product
 
@@ -208,7 +209,7 @@ class IndexingResult:
     residual : ndarray (M,)        |q_obs − q_model| (Å⁻¹)
     predicted : ndarray (M,)       predicted relative intensity |T_W(k⊥)|² (1 at q = 0)
     scale : float                  fitted isotropic reciprocal scale (observed/model)
-    intensity_scale : float        fitted factor c in I_obs ≈ c·predicted
+    intensity_scale : float        fitted factor c in I_obs ≈ c·predicted (median of ratios)
     """
 
     scheme: CutProjectScheme
@@ -268,13 +269,23 @@ class IndexingResult:
         """Whether the pattern is consistent with the scheme (see ``verdict``)."""
         return self.verdict()[0]
 
-    def verdict(self, min_fraction: float = 0.8, min_correlation: float = 0.5) -> tuple[bool, str]:
+    @property
+    def chance_matches(self) -> float:
+        """Mean expected number of module vectors (|k⊥| ≤ kperp_max) inside a peak's
+        tolerance ball by chance; indexing by position alone means little when it nears 1."""
+        return float(self.info.get("chance_matches", float("nan")))
+
+    def verdict(self, min_fraction: float = 0.8, min_correlation: float = 0.5,
+                max_chance: float = 0.5) -> tuple[bool, str]:
         """Decide whether the peaks are those of a quasiperiodic pattern of this scheme.
 
         Conditions: at least `min_fraction` of the peaks indexed within tolerance with
-        |k⊥| ≤ kperp_max; the indices span the full rank D (a periodic crystal's peaks span
-        only rank d); and, with intensities, a rank correlation ≥ `min_correlation` between
-        observed and predicted intensities.
+        |k⊥| ≤ kperp_max (and, with intensities, matching intensities); the indices span the
+        full rank (a periodic crystal's peaks span only rank d); with intensities, a rank
+        correlation ≥ `min_correlation` between observed and predicted intensities; without
+        intensities, fewer than `max_chance` chance matches per peak (λ = 0.5 lets a
+        random pattern index about 1 − e^−λ ≈ 40 % of its peaks, well below
+        `min_fraction`).
 
         Returns
         -------
@@ -285,6 +296,10 @@ class IndexingResult:
             # the level direction of a sliced window is not an independent rank
             d_rank -= self.scheme.window.dense.count(False)
         frac = self.fraction_indexed
+        with_i = bool(np.isfinite(self.intensity_obs).all())
+        if not with_i and self.chance_matches > max_chance:
+            return False, (f"undecided from positions alone: {self.chance_matches:.2g} module vectors fall "
+                           f"within the tolerance of a peak by chance (give intensities or lower kperp_max)")
         if frac < min_fraction:
             return False, f"only {frac:.0%} of the peaks index with |k⊥| ≤ {self.kperp_max:.3g}"
         rank = self.index_rank
@@ -380,16 +395,20 @@ def _spearman(a, b) -> float:
     return float((ra * rb).sum() / den) if den > 0 else 0.0
 
 
-def _default_kperp_max(scheme: CutProjectScheme) -> float:
-    lo, hi = scheme.window.bounds()
-    dense = np.array(scheme.window.dense, dtype=bool)
-    diam = float(np.max((hi - lo)[dense]))
-    return 2.0 / diam
+def kperp_bound(scheme: CutProjectScheme, min_predicted: float) -> float:
+    """|k⊥| beyond which the window transform stays below `min_predicted` in intensity.
+
+    From the divergence theorem, |T_W(k⊥)| ≤ S / (2π |k⊥| V) with S the boundary measure
+    and V the volume of the window, so |T|² < p for |k⊥| > S / (2π V √p).
+    """
+    w = scheme.window
+    return float(w.boundary_measure / (2 * np.pi * w.measure * np.sqrt(min_predicted)))
 
 
 def index_peaks(scheme: CutProjectScheme, peaks, intensity=None, *, scale: float = 1.0, fit_scale: bool = True,
                 tolerance: float = 0.01, abs_tolerance: float | None = None, search_tolerance: float = 0.04,
-                kperp_max: float | None = None, n_seed: int = 12, max_iter: int = 10) -> IndexingResult:
+                intensity_factor: float = 10.0, kperp_max: float | None = None, min_predicted: float = 1e-2,
+                n_seed: int = 12, max_iter: int = 10) -> IndexingResult:
     """Index peaks with integer higher-dimensional indices.
 
     Parameters
@@ -399,9 +418,10 @@ def index_peaks(scheme: CutProjectScheme, peaks, intensity=None, *, scale: float
     peaks : Peaks or array_like (M, 3)
         Peak positions q in Å⁻¹ (in the scheme's frame).
     intensity : array_like (M,), optional
-        Peak intensities (taken from `peaks` when it is a :class:`Peaks`).
+        Peak intensities (taken from `peaks` when it is a :class:`Peaks`). With
+        intensities, a candidate must also match in intensity (see `intensity_factor`).
     scale : float
-        Starting guess of observed/model reciprocal scale (e.g. model edge / true edge).
+        Starting guess of the observed/model reciprocal scale (model edge / true edge).
     fit_scale : bool
         Refine the scale by least squares.
     tolerance : float
@@ -409,10 +429,20 @@ def index_peaks(scheme: CutProjectScheme, peaks, intensity=None, *, scale: float
     abs_tolerance : float, optional
         Absolute part of the tolerance in Å⁻¹ (default 0.2 × tolerance × the median |q|).
     search_tolerance : float
-        Relative tolerance of the first pass on the strongest peaks, which must cover the
+        Relative tolerance of the first pass on the strongest peaks; it must cover the
         error of the scale guess.
+    intensity_factor : float
+        Largest accepted ratio (either way) between the observed intensity and the fitted
+        prediction c·|T_W(k⊥)|². Decoration, Debye–Waller factors and noise make real
+        intensities differ from the bare window transform; 10 is permissive.
     kperp_max : float, optional
-        Largest |k⊥| considered (default 2 / window diameter).
+        Largest |k⊥| searched. Default: where the window transform's bound falls below the
+        weakest observed relative intensity divided by `intensity_factor` (or below
+        `min_predicted` without intensities); see :func:`kperp_bound`.
+    min_predicted : float
+        Weakest predicted intensity |T_W|² considered when no intensities are given
+        (positions alone: a small value lets chance matches in, see
+        :attr:`IndexingResult.chance_matches`).
     n_seed : int
         Number of strongest peaks used to fit the scale first.
     max_iter : int
@@ -424,10 +454,12 @@ def index_peaks(scheme: CutProjectScheme, peaks, intensity=None, *, scale: float
 
     Notes
     -----
-    Among candidate module vectors within tolerance, the choice minimises
-    (residual/tolerance)² + (ln((I_obs + f)/(c·I_pred + f)))² with c the fitted intensity
-    scale and f = 10⁻³ of the strongest peak; without intensities, the candidate with the
-    largest predicted intensity |T_W(k⊥)|² wins.
+    Pass 1: the `n_seed` strongest peaks are given, within `search_tolerance`, the module
+    vector of largest predicted intensity; the scale is their least-squares ratio and the
+    intensity scale c the median of I_obs/|T|². Pass 2 (iterated): every peak gets, among
+    the module vectors within `tolerance` whose intensities agree within `intensity_factor`,
+    the one minimising (residual/tolerance)² + (ln(I_obs/(c|T|²)) / ln factor)²; then scale
+    and c are refitted. Without intensities the largest predicted intensity wins.
     """
     if isinstance(peaks, Peaks):
         q = peaks.q
@@ -446,71 +478,89 @@ def index_peaks(scheme: CutProjectScheme, peaks, intensity=None, *, scale: float
             raise InvalidInputError(f"`intensity` must have {m} values, got {inten.shape}")
         if (inten < 0).any() or not np.isfinite(inten).all():
             raise InvalidInputError("`intensity` must be finite and >= 0")
-    if not (np.isfinite(scale) and scale > 0):
-        raise InvalidInputError(f"`scale` must be > 0, got {scale!r}")
+    for name, val in (("scale", scale), ("tolerance", tolerance), ("search_tolerance", search_tolerance),
+                      ("min_predicted", min_predicted)):
+        if not (isinstance(val, (int, float, np.floating)) and np.isfinite(val) and val > 0):
+            raise InvalidInputError(f"`{name}` must be a number > 0, got {val!r}")
+    if not (np.isfinite(intensity_factor) and intensity_factor > 1):
+        raise InvalidInputError(f"`intensity_factor` must be > 1, got {intensity_factor!r}")
     d = scheme.dim
-    kpm = _default_kperp_max(scheme) if kperp_max is None else float(kperp_max)
-    if not kpm > 0:
-        raise InvalidInputError(f"`kperp_max` must be > 0, got {kperp_max!r}")
     k_obs = q / (2 * np.pi)
     k_out = np.linalg.norm(k_obs[:, d:], axis=1)  # components outside the physical space
     k_in = k_obs[:, :d]
     kabs = np.linalg.norm(k_in, axis=1)
-    med = float(np.median(kabs[kabs > 0])) if (kabs > 0).any() else 1.0
+    nonzero_mask = kabs > 1e-12
+    med = float(np.median(kabs[nonzero_mask])) if nonzero_mask.any() else 1.0
     abs_tol_k = (0.2 * tolerance * med) if abs_tolerance is None else float(abs_tolerance) / (2 * np.pi)
-    have_i = np.isfinite(inten).all() and m > 0
-    floor = 1e-3 * float(inten.max()) if have_i and inten.max() > 0 else 0.0
+    have_i = bool(np.isfinite(inten).all() and m > 0 and inten[nonzero_mask].max(initial=0) > 0)
+    if kperp_max is not None:
+        kpm = float(kperp_max)
+        if not (np.isfinite(kpm) and kpm > 0):
+            raise InvalidInputError(f"`kperp_max` must be > 0, got {kperp_max!r}")
+    elif have_i:
+        pos = inten[nonzero_mask]
+        dyn = max(float(pos[pos > 0].min() / pos.max()) if (pos > 0).any() else min_predicted, 1e-8)
+        kpm = kperp_bound(scheme, min(dyn / intensity_factor, 0.5))
+    else:
+        kpm = kperp_bound(scheme, min_predicted)
+    log_f = float(np.log(intensity_factor))
     cache: dict = {}
 
     def candidates(i: int, sc: float, rel: float):
-        key = (i, round(sc, 12), rel)
-        if key in cache:
-            return cache[key]
-        if k_out[i] > rel * kabs[i] + abs_tol_k:
-            cache[key] = None
-            return None
-        rad = (rel * kabs[i] + abs_tol_k) / sc
-        mv = scheme.search_module(k_in[i] / sc, rad, kpm)
-        if len(mv) == 0:
-            cache[key] = None
-            return None
-        pred = np.abs(scheme.window.transform(mv.k_perp)) ** 2
-        res = np.linalg.norm(sc * mv.k_par - k_in[i], axis=1)
-        cache[key] = (mv, pred, res)
+        key = (i, sc, rel)
+        if key not in cache:
+            tol_i = rel * kabs[i] + abs_tol_k
+            if k_out[i] > tol_i:
+                cache[key] = None
+            else:
+                mv = scheme.search_module(k_in[i] / sc, tol_i / sc, kpm)
+                if len(mv) == 0:
+                    cache[key] = None
+                else:
+                    pred = np.abs(scheme.window.transform(mv.k_perp)) ** 2
+                    res = np.linalg.norm(sc * mv.k_par - k_in[i], axis=1)
+                    cache[key] = (mv, pred, res, tol_i)
         return cache[key]
 
     def choose(i, sc, rel, c_int):
         cand = candidates(i, sc, rel)
         if cand is None:
             return None
-        mv, pred, res = cand
-        tol_i = rel * kabs[i] + abs_tol_k
-        if have_i and c_int is not None and c_int > 0:
-            cost = (res / tol_i) ** 2 + np.log((inten[i] + floor) / (c_int * pred + floor)) ** 2
+        mv, pred, res, tol_i = cand
+        if have_i and c_int is not None:
+            ratio = np.log(np.maximum(inten[i], 1e-300) / np.maximum(c_int * pred, 1e-300))
+            ok = np.abs(ratio) <= log_f
+            if not ok.any():
+                return None
+            cost = np.where(ok, (res / tol_i) ** 2 + (ratio / log_f) ** 2, np.inf)
             j = int(np.argmin(cost))
         else:
             j = int(np.lexsort((res, -pred))[0])
         return mv.indices[j], mv.k_par[j], mv.k_perp[j], pred[j], res[j]
 
     order = np.argsort(-inten) if have_i else np.argsort(kabs)
-    nonzero = [i for i in order if kabs[i] > 1e-12]
+    nonzero = [int(i) for i in order if kabs[i] > 1e-12]
     sc = float(scale)
     c_int = None
-    # pass 1: the strongest peaks with a loose tolerance fix the scale
-    if fit_scale and nonzero:
-        seeds = nonzero[: max(2, int(n_seed))]
-        for _ in range(3):
-            picks = [(i, choose(i, sc, search_tolerance, None)) for i in seeds]
-            picks = [(i, p) for i, p in picks if p is not None]
-            if not picks:
-                break
-            num = sum(float(k_in[i] @ p[1]) for i, p in picks)
-            den = sum(float(p[1] @ p[1]) for _, p in picks)
-            new = num / den if den > 0 else sc
-            if abs(new - sc) < 1e-12 * sc:
-                sc = new
-                break
-            sc = new
+    seeds = nonzero[: max(2, int(n_seed))]
+    # pass 1: the strongest peaks with a loose tolerance fix the scale (and c)
+    for _ in range(4):
+        picks = [(i, choose(i, sc, search_tolerance, None)) for i in seeds]
+        picks = [(i, p) for i, p in picks if p is not None]
+        if not picks:
+            break
+        if have_i:
+            lr = [np.log(inten[i] / p[3]) for i, p in picks if inten[i] > 0 and p[3] > 0]
+            c_int = float(np.exp(np.median(lr))) if lr else None
+        if not fit_scale:
+            break
+        num = sum(float(k_in[i] @ p[1]) for i, p in picks)
+        den = sum(float(p[1] @ p[1]) for _, p in picks)
+        new = num / den if den > 0 else sc
+        done = abs(new - sc) < 1e-12 * sc
+        sc = new
+        if done:
+            break
     # pass 2: all peaks, final tolerance; iterate assignment and refits
     big_d = scheme.lattice_dim
     e = scheme.internal_dim
@@ -531,13 +581,14 @@ def index_peaks(scheme: CutProjectScheme, peaks, intensity=None, *, scale: float
                 continue
             idx[i], kpar[i], kperp[i], pred[i], _ = p
             ok[i] = True
-        if fit_scale and ok.any():
-            den = float((kpar[ok] * kpar[ok]).sum())
+        use = ok & nonzero_mask
+        if fit_scale and use.any():
+            den = float((kpar[use] * kpar[use]).sum())
             if den > 0:
-                sc = float((k_in[ok] * kpar[ok]).sum()) / den
-        if have_i and ok.any():
-            den = float((pred[ok] ** 2).sum())
-            c_int = float((inten[ok] * pred[ok]).sum()) / den if den > 0 else None
+                sc = float((k_in[use] * kpar[use]).sum()) / den
+        if have_i and use.any():
+            lr = np.log(np.maximum(inten[use], 1e-300) / np.maximum(pred[use], 1e-300))
+            c_int = float(np.exp(np.median(lr)))
         state = (idx.tobytes(), ok.tobytes())
         if state == prev:
             break
@@ -547,10 +598,23 @@ def index_peaks(scheme: CutProjectScheme, peaks, intensity=None, *, scale: float
     residual = np.linalg.norm(q - q_model, axis=1)
     residual[~ok] = np.nan
     tol_q = 2 * np.pi * (tolerance * kabs + abs_tol_k)
+    # expected number of module vectors inside a peak's tolerance ball by chance: the dual
+    # lattice has |det M| points per unit (k, k⊥) volume (discrete level directions: one
+    # representative per unit length)
+    dense = np.array(scheme.window.dense, dtype=bool)
+    n_dense = int(dense.sum())
+    tol_k = (tolerance * kabs + abs_tol_k) / sc
+    chance = (abs(np.linalg.det(scheme.embedding)) * _ball_volume(kpm, n_dense)
+              * _ball_volume(tol_k, d))
     return IndexingResult(scheme=scheme, q_obs=q, intensity_obs=inten, indices=idx, indexed=ok, q_model=q_model,
                           k_perp=kperp, residual=residual, predicted=pred, scale=sc,
                           intensity_scale=float(c_int) if c_int is not None else float("nan"),
-                          tolerance=tol_q, kperp_max=kpm)
+                          tolerance=tol_q, kperp_max=kpm,
+                          info={"chance_matches": float(np.mean(chance[nonzero_mask])) if nonzero_mask.any() else 0.0})
+
+
+def _ball_volume(r, dim: int):
+    return np.pi ** (dim / 2) / math.gamma(dim / 2 + 1) * np.asarray(r, dtype=np.float64) ** dim
 
 
 # ------------------------------------------------------------------------------ inflation
@@ -706,4 +770,4 @@ def plot_indexed(result: IndexingResult, path, pattern=None, annotate: int = 30,
 
 
 __all__ = ["Peaks", "find_peaks", "IndexingResult", "index_peaks", "InflationCheck", "inflation_check",
-           "plot_indexed"]
+           "plot_indexed", "kperp_bound"]

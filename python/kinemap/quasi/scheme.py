@@ -24,7 +24,7 @@ import numpy as np
 from ..errors import InvalidInputError
 from ._enumerate import StripEnumerator
 from ._precise import saturated_lattice
-from .windows import (BoxWindow, IntervalWindow, PolygonWindow, PolyhedronWindow, SlicedWindow,
+from .windows import (BallWindow, BoxWindow, IntervalWindow, PolygonWindow, PolyhedronWindow, SlicedWindow,
                       Window, _zonogon, convex_hull_2d)
 
 
@@ -197,6 +197,7 @@ class CutProjectScheme:
             raise InvalidInputError("the embedding [parallel; internal] is singular")
         self._dual = np.linalg.inv(m).T @ self.index_basis
         self._enum = None
+        self._search_cache: dict = {}
 
     # ---------------------------------------------------------------- basic properties
     @property
@@ -355,18 +356,49 @@ class CutProjectScheme:
             Centre of the search ball in cycles/Å (physical components only).
         k_radius : float
         kperp_max : float
-            Bound on the dense internal components.
+            Bound on the dense internal components. Discrete (level) components are
+            reduced to one representative in [−0.5, 0.5).
+
+        Notes
+        -----
+        The dual lattice is searched in a strip, like the points themselves; when the
+        internal ball is the larger of the two, the roles of the spaces are swapped (the
+        small physical ball acts as the window), which keeps the work proportional to the
+        number of candidates.
         """
         if not (np.isfinite(kperp_max) and kperp_max > 0):
             raise InvalidInputError(f"`kperp_max` must be > 0, got {kperp_max!r}")
+        if not (np.isfinite(k_radius) and k_radius > 0):
+            raise InvalidInputError(f"`k_radius` must be > 0, got {k_radius!r}")
+        kc = np.asarray(k_center, dtype=np.float64).reshape(self.dim)
         par = self._dual[: self.dim]
         perp = self._dual[self.dim:]
-        enum = StripEnumerator(par, perp, self._search_window(kperp_max))
-        parts = [n for n, _, _ in enum.iter_chunks(np.asarray(k_center, dtype=np.float64).reshape(self.dim),
-                                                   float(k_radius), 1 << 22)]
+        dense = np.array(self.window.dense, dtype=bool)
+        if kperp_max >= k_radius:
+            key = ("swap", float(k_radius))
+            enum = self._search_cache.get(key)
+            if enum is None:
+                enum = StripEnumerator(perp, par, BallWindow(np.zeros(self.dim), float(k_radius)))
+                if len(self._search_cache) > 64:
+                    self._search_cache.clear()
+                self._search_cache[key] = enum
+            r_int = float(np.sqrt(kperp_max ** 2 + 0.25 * (~dense).sum()))
+            gen = enum.iter_chunks(np.zeros(self.internal_dim), r_int, 1 << 22, window_offset=kc)
+        else:
+            key = ("direct", float(kperp_max))
+            enum = self._search_cache.get(key)
+            if enum is None:
+                enum = StripEnumerator(par, perp, self._search_window(kperp_max))
+                self._search_cache[key] = enum
+            gen = enum.iter_chunks(kc, float(k_radius), 1 << 22)
+        parts = [n for n, _, _ in gen]
         h = np.concatenate(parts) if parts else np.zeros((0, self.lattice_dim), dtype=np.int64)
         mv = self.module(h)
         keep = self._dense_norm(mv.k_perp) <= kperp_max
+        if (~dense).any():
+            z = mv.k_perp[:, ~dense]
+            keep &= ((z >= -0.5 - 1e-9) & (z < 0.5 - 1e-9)).all(axis=1)
+        keep &= np.linalg.norm(mv.k_par - kc, axis=1) <= k_radius
         return self.module(h[keep])
 
     def module_vectors(self, q_max: float, kperp_max: float, min_intensity: float = 0.0) -> ModuleVectors:

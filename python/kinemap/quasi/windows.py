@@ -145,6 +145,12 @@ class Window:
         raise NotImplementedError
 
     @property
+    def boundary_measure(self) -> float:  # pragma: no cover - abstract
+        """Size of the boundary (points, perimeter or surface area); with the divergence
+        theorem it bounds the transform: |T_W(k)| ≤ boundary / (2π|k| vol W)."""
+        raise NotImplementedError
+
+    @property
     def vertices(self) -> np.ndarray:  # pragma: no cover - abstract
         raise NotImplementedError
 
@@ -228,6 +234,10 @@ class IntervalWindow(Window):
     def measure(self) -> float:
         return self.hi - self.lo
 
+    @property
+    def boundary_measure(self) -> float:
+        return 2.0
+
     def bounds(self):
         return np.array([self.lo]), np.array([self.hi])
 
@@ -249,9 +259,16 @@ class IntervalWindow(Window):
         return f"IntervalWindow([{self.lo:.6g}, {self.hi:.6g}))"
 
 
+def _unique_rows(p: np.ndarray, decimals: int = 9) -> np.ndarray:
+    """Rows of `p` without near-duplicates (compared after rounding; originals returned)."""
+    scale = max(1.0, float(np.abs(p).max())) if p.size else 1.0
+    _, idx = np.unique(np.round(p / scale, decimals), axis=0, return_index=True)
+    return p[np.sort(idx)]
+
+
 def convex_hull_2d(points) -> np.ndarray:
     """Vertices of the convex hull of 2-D points, counter-clockwise (monotone chain)."""
-    p = np.unique(np.round(np.asarray(points, dtype=np.float64), 12), axis=0)
+    p = _unique_rows(np.asarray(points, dtype=np.float64))
     if len(p) < 3:
         raise InvalidInputError(f"a polygon needs at least 3 distinct points, got {len(p)}")
     order = np.lexsort((p[:, 1], p[:, 0]))
@@ -314,6 +331,10 @@ class PolygonWindow(Window):
 
     def bounds(self):
         return self._v.min(axis=0), self._v.max(axis=0)
+
+    @property
+    def boundary_measure(self) -> float:
+        return float(np.linalg.norm(np.roll(self._v, -1, axis=0) - self._v, axis=1).sum())
 
     def simplices(self) -> np.ndarray:
         """Triangles (fan from the vertex centroid), shape (V, 3, 2)."""
@@ -413,7 +434,7 @@ class PolyhedronWindow(Window):
         self._faces = out_faces
         self._normals = np.array(normals)
         self._offsets = np.array(offsets)
-        self._v = np.unique(np.round(allv, 12), axis=0)
+        self._v = _unique_rows(allv)
         self._c = c
         self._scale = float(np.abs(self._v).max() + np.ptp(self._v, axis=0).max())
 
@@ -481,6 +502,11 @@ class PolyhedronWindow(Window):
 
     def bounds(self):
         return self._v.min(axis=0), self._v.max(axis=0)
+
+    @property
+    def boundary_measure(self) -> float:
+        return float(sum(0.5 * np.linalg.norm(np.sum(np.cross(f, np.roll(f, -1, axis=0)), axis=0))
+                         for f in self._faces))
 
     def integral(self, k_perp) -> np.ndarray:
         return simplex_transforms(self.simplices(), np.asarray(k_perp, dtype=np.float64))
@@ -553,6 +579,10 @@ class SlicedWindow(Window):
     def measure(self) -> float:
         """Total area of the slices (the lattice projects onto integer levels)."""
         return float(sum(p.measure for p in self.polygons))
+
+    @property
+    def boundary_measure(self) -> float:
+        return float(sum(p.boundary_measure for p in self.polygons))
 
     def bounds(self):
         lo = np.min([p.bounds()[0] for p in self.polygons], axis=0)
