@@ -26,7 +26,7 @@ import numpy as np
 from ..errors import InvalidInputError
 
 #: Candidate rows processed per vectorised step (bounds working memory).
-_CANDIDATES_PER_STEP = 1 << 21
+_CANDIDATES_PER_STEP = 1 << 20
 
 
 class StripEnumerator:
@@ -87,11 +87,81 @@ class StripEnumerator:
         self.qr_q, self.qr_r = qq, rr
         self.offsets_b = np.array(list(product(*[range(int(c)) for c in self.count_b])), dtype=np.int64)
         self.offsets_b = self.offsets_b.reshape(-1, e)
+        # Polytope windows: the last window coordinate gets its exact integer range from the
+        # half-spaces, instead of a box, which cuts the candidates to about one per point.
+        self.faces = None
+        if hasattr(window, "halfspaces") and e >= 1:
+            normals, offsets = window.halfspaces()
+            normals = np.asarray(normals, float)
+            offsets = np.asarray(offsets, float)
+            coef = normals @ q[:, self.b_idx[-1]]
+            # n·y ≤ b with n·y = n·y_head + coef·t gives, per face, t ≤ (b − n·y_head)/coef
+            # (coef > 0) or t ≥ … (coef < 0): precompute the scaled normals so that one
+            # matrix product per block gives every bound. Faces parallel to the last
+            # direction (coef = 0) only decide whether a head row is feasible at all.
+            nz = np.abs(coef) > 1e-9 * np.abs(coef).max()
+            self.faces = (normals[nz] / coef[nz, None], offsets[nz] / coef[nz], coef[nz] > 0,
+                          normals[~nz], offsets[~nz])
+            if e > 1:
+                self.offsets_head = np.array(list(product(*[range(int(c)) for c in self.count_b[:-1]])),
+                                             dtype=np.int64).reshape(-1, e - 1)
+            else:
+                self.offsets_head = np.zeros((1, 0), dtype=np.int64)
 
     # -------------------------------------------------------------------------------------
     def candidates_per_point(self, density: float) -> float:
-        """Expected candidate rows per accepted point (a diagnostic)."""
+        """Expected candidate rows per accepted point with the box search (a diagnostic)."""
         return float(len(self.offsets_b) / (abs(np.linalg.det(self.s)) * density))
+
+    def _window_candidates(self, blk: np.ndarray, ya: np.ndarray, bmin: np.ndarray, off: np.ndarray):
+        """Candidate (a, b) rows for a block of a-points: (n, y) with y = Q n."""
+        e = self.e
+        if self.faces is None:
+            start = np.ceil(bmin - ya @ self.qb_inv.T - 1e-9).astype(np.int64)
+            mb = (start[:, None, :] + self.offsets_b[None, :, :]).reshape(-1, e)
+            ma = np.repeat(blk, len(self.offsets_b), axis=0)
+        else:
+            scaled, bounds, pos, flat_n, flat_b = self.faces
+            bounds = bounds + scaled @ off
+            flat_b = flat_b + flat_n @ off
+            qb = self.q[:, self.b_idx]
+            start = np.ceil(bmin[:-1] - ya @ self.qb_inv[:-1].T - 1e-9).astype(np.int64)
+            nh = len(self.offsets_head)
+            head = (start[:, None, :] + self.offsets_head[None, :, :]).reshape(len(start) * nh, e - 1)
+            yp = np.repeat(ya, nh, axis=0) + head @ qb[:, :-1].T
+            tb = bounds[None, :] - yp @ scaled.T  # t ≤ tb (coef > 0) or t ≥ tb (coef < 0)
+            t_hi = tb[:, pos].min(axis=1) if pos.any() else np.full(len(yp), np.inf)
+            t_lo = tb[:, ~pos].max(axis=1) if (~pos).any() else np.full(len(yp), -np.inf)
+            lo = np.ceil(t_lo - 1e-9)
+            hi = np.floor(t_hi + 1e-9)
+            cnt = np.maximum(hi - lo + 1, 0).astype(np.int64)
+            if len(flat_b):
+                slack = flat_b[None, :] - yp @ flat_n.T
+                cnt[(slack < -1e-9).any(axis=1)] = 0
+                # rows lying on a flat face need the regularised test below
+                on_flat = (np.abs(slack) <= 1e-9).any(axis=1)
+            else:
+                on_flat = np.zeros(len(yp), dtype=bool)
+            total = int(cnt.sum())
+            rep = np.repeat(np.arange(len(yp)), cnt)
+            offs = np.arange(total, dtype=np.int64) - np.repeat(np.cumsum(cnt) - cnt, cnt)
+            last = lo.astype(np.int64)[rep] + offs
+            mb = np.column_stack([head[rep], last])
+            ma = np.repeat(blk, nh, axis=0)[rep]
+            n = np.empty((len(mb), self.D), dtype=np.int64)
+            n[:, self.a_idx] = ma
+            n[:, self.b_idx] = mb
+            # internal coordinates without a general matrix product
+            y = yp[rep] + last[:, None].astype(np.float64) * self.q[:, self.b_idx[-1]]
+            # rows well inside the t-range are inside the window; only rows within rounding
+            # of a face need the (regularised) membership test
+            lastf = last.astype(np.float64)
+            near = ((lastf - t_lo[rep]) < 1e-7) | ((t_hi[rep] - lastf) < 1e-7) | on_flat[rep]
+            return n, y, near
+        n = np.empty((len(mb), self.D), dtype=np.int64)
+        n[:, self.a_idx] = ma
+        n[:, self.b_idx] = mb
+        return n, n.astype(np.float64) @ self.q.T, None
 
     def _outer_range(self, z: np.ndarray, rho: float):
         r = self.qr_r
@@ -127,7 +197,7 @@ class StripEnumerator:
             cols = [new] + [cc[rep] for cc in cols]
         return np.column_stack(cols) if cols[0].size else np.zeros((0, d), dtype=np.int64)
 
-    def iter_chunks(self, center, radius: float, chunk_points: int = 1 << 20, accept=None, window_offset=None):
+    def iter_chunks(self, center, radius: float, chunk_points: int = 1 << 18, accept=None, window_offset=None):
         """Yield ``(n, x, y)`` chunks: integer indices (K, D), parallel (K, d) and internal
         (K, e) coordinates of the accepted points, in a deterministic order.
 
@@ -168,21 +238,22 @@ class StripEnumerator:
             a_pts = self._expand(outer, z, rho_prime)
             if len(a_pts) == 0:
                 continue
-            per_block = max(1, _CANDIDATES_PER_STEP // len(self.offsets_b))
+            if self.faces is None:
+                per_block = max(1, _CANDIDATES_PER_STEP // len(self.offsets_b))
+            else:
+                per_block = max(1, (_CANDIDATES_PER_STEP // 8) // len(self.offsets_head))
             for s0 in range(0, len(a_pts), per_block):
                 blk = a_pts[s0:s0 + per_block]
                 ya = blk @ qa.T
-                start = np.ceil(bmin - ya @ self.qb_inv.T - 1e-9).astype(np.int64)
-                mb = (start[:, None, :] + self.offsets_b[None, :, :]).reshape(-1, self.e)
-                ma = np.repeat(blk, len(self.offsets_b), axis=0)
-                n = np.empty((len(mb), self.D), dtype=np.int64)
-                n[:, self.a_idx] = ma
-                n[:, self.b_idx] = mb
-                nf = n.astype(np.float64)
-                y = nf @ self.q.T
-                ok = self.window.contains(y - off)
-                n, nf, y = n[ok], nf[ok], y[ok]
-                x = nf @ self.p.T
+                n, y, near = self._window_candidates(blk, ya, bmin, off)
+                if near is None:
+                    ok = self.window.contains(y - off)
+                else:
+                    ok = np.ones(len(n), dtype=bool)
+                    if near.any():
+                        ok[near] = self.window.contains(y[near] - off)
+                n, y = n[ok], y[ok]
+                x = n.astype(np.float64) @ self.p.T
                 ok = np.einsum("ij,ij->i", x - c, x - c) <= rho * rho * (1 + 1e-12)
                 n, x, y = n[ok], x[ok], y[ok]
                 if accept is not None and len(n):

@@ -132,7 +132,7 @@ class ChainScheme(CutProjectScheme):
         for s in range(int(start), int(start) + int(n_points), int(chunk_points)):
             yield self.chain_points(s, min(int(start) + int(n_points), s + int(chunk_points)))
 
-    def iter_points(self, radius, center=None, chunk_points: int = 1 << 20, with_indices: bool = False):
+    def iter_points(self, radius, center=None, chunk_points: int = 1 << 18, with_indices: bool = False):
         """Points with |x − center| ≤ radius, streamed by the closed form."""
         radius, c = self._check_region(radius, center)
         lo, hi = c[0] - radius, c[0] + radius

@@ -248,7 +248,7 @@ class CutProjectScheme:
             raise InvalidInputError(f"`center` must be {self.dim} finite numbers (Å), got {center!r}")
         return radius, c
 
-    def iter_points(self, radius, center=None, chunk_points: int = 1 << 20, with_indices: bool = False):
+    def iter_points(self, radius, center=None, chunk_points: int = 1 << 18, with_indices: bool = False):
         """Stream the points within `radius` of `center` in chunks.
 
         Parameters
@@ -272,10 +272,31 @@ class CutProjectScheme:
         for n, x, y in self._enumerator().iter_chunks(c, radius, int(chunk_points)):
             yield PointSet(embed3(x), y, n if with_indices else None, self)
 
-    def iter_positions(self, radius, center=None, chunk_points: int = 1 << 20):
+    def iter_positions(self, radius, center=None, chunk_points: int = 1 << 18):
         """Stream plain position arrays (N, 3) in Å: the lightest form for huge patches."""
         for ps in self.iter_points(radius, center, chunk_points):
             yield ps.positions
+
+    def positions(self, radius, center=None, chunk_points: int = 1 << 18) -> np.ndarray:
+        """All positions within `radius` (Å) of `center` as one (N, 3) float64 array.
+
+        The array is preallocated from the expected count (density × volume) and filled
+        chunk by chunk, so the peak memory is the result plus one chunk.
+        """
+        radius, c = self._check_region(radius, center)
+        vol = {1: 2 * radius, 2: np.pi * radius ** 2, 3: 4 / 3 * np.pi * radius ** 3}[self.dim]
+        cap = int(self.density * vol * 1.02) + 1024
+        out = np.empty((cap, 3))
+        n = 0
+        for chunk in self.iter_positions(radius, c, chunk_points):
+            k = len(chunk)
+            if n + k > len(out):
+                grown = np.empty((max(2 * len(out), n + k), 3))
+                grown[:n] = out[:n]
+                out = grown
+            out[n:n + k] = chunk
+            n += k
+        return out[:n].copy() if n < 0.9 * len(out) else out[:n]
 
     def points(self, radius, center=None, with_indices: bool = True) -> PointSet:
         """All points within `radius` (Å) of `center`: see :meth:`iter_points`."""
@@ -284,7 +305,9 @@ class CutProjectScheme:
     def model(self, radius, center=None, species="A", **model_options):
         """A :class:`kinemap.Model` of the patch (species: one label, see also
         :mod:`kinemap.quasi.decorate`)."""
-        return self.points(radius, center, with_indices=False).to_model(species, **model_options)
+        from ..model import Model  # lazy: the generators themselves need only numpy
+
+        return Model(self.positions(radius, center), species, **model_options)
 
     def source(self, radius, center=None, species: str = "A"):
         """An atom source that streams the patch into :func:`kinemap.scatter` without ever

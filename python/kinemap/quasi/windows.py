@@ -238,6 +238,10 @@ class IntervalWindow(Window):
     def boundary_measure(self) -> float:
         return 2.0
 
+    def halfspaces(self) -> tuple[np.ndarray, np.ndarray]:
+        """Outward normals (F, dim) and offsets (F,): the window is {y : n·y ≤ b}."""
+        return np.array([[1.0], [-1.0]]), np.array([self.hi, -self.lo])
+
     def bounds(self):
         return np.array([self.lo]), np.array([self.hi])
 
@@ -335,6 +339,10 @@ class PolygonWindow(Window):
     @property
     def boundary_measure(self) -> float:
         return float(np.linalg.norm(np.roll(self._v, -1, axis=0) - self._v, axis=1).sum())
+
+    def halfspaces(self) -> tuple[np.ndarray, np.ndarray]:
+        """Outward unit normals (F, 2) and offsets (F,): the window is {y : n·y ≤ b}."""
+        return self._normals.copy(), self._offsets.copy()
 
     def simplices(self) -> np.ndarray:
         """Triangles (fan from the vertex centroid), shape (V, 3, 2)."""
@@ -507,6 +515,10 @@ class PolyhedronWindow(Window):
     def boundary_measure(self) -> float:
         return float(sum(0.5 * np.linalg.norm(np.sum(np.cross(f, np.roll(f, -1, axis=0)), axis=0))
                          for f in self._faces))
+
+    def halfspaces(self) -> tuple[np.ndarray, np.ndarray]:
+        """Outward unit normals (F, 3) and offsets (F,): the window is {y : n·y ≤ b}."""
+        return self._normals.copy(), self._offsets.copy()
 
     def integral(self, k_perp) -> np.ndarray:
         return simplex_transforms(self.simplices(), np.asarray(k_perp, dtype=np.float64))
