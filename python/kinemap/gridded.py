@@ -42,19 +42,27 @@ from .errors import InvalidInputError
 from .model import Groups
 from .qgrid import QGrid
 
-#: Oversampling factors σ the planner considers (fine grid = σ × output grid per axis).
-UPSAMPLE_CHOICES = (2.0, 1.5, 1.25)
+#: Oversampling factors σ the planner considers for regular grids (fine grid = σ × output
+#: grid per axis): larger σ needs a narrower kernel (cheaper spreading) but a larger FFT.
+#: Each was checked to meet the tolerance for 1e-3 … 1e-12 (σ = 1.75, 2.5 and 3 were not
+#: reliable with the width rules and are left out).
+UPSAMPLE_CHOICES = (2.25, 2.0, 1.5, 1.25)
+#: The same for arbitrary q-points (two approximation stages; σ < 2 only for tol ≥ 1e-8).
+UPSAMPLE_CHOICES_POINTS = (2.0, 1.5, 1.25)
 #: Widest kernel the core supports (grid points per axis).
 MAX_WIDTH = 16
+#: Tightest tolerance the gridded path accepts: rounding in the FFTs and deconvolutions puts
+#: a floor near 1e-13 under the achieved relative error, so tighter requests go to the exact sum.
+MIN_TOL = 1e-12
 
 # Cost model (seconds per unit on one core of the reference machine, Zen 5 with AVX-512,
 # measured with the benchmarks in benchmarks/bench_gridded.py). Only ratios matter for the
 # choice of method; absolute values are rough.
 _T_EXACT_GRID = 1.0 / 4.0e9    # per atom–q pair, phase stepping on regular grids
 _T_EXACT_POINT = 1.0 / 6.0e8   # per atom–q pair, one sincos per pair
-_T_SPREAD = 1.0 / 1.2e9        # per kernel point written (atoms × wᵈ), includes cache misses
-_T_ATOM = 60e-9                # per atom: projection, phase, sort
-_T_FFT = 1.0 / 3.0e9           # per flop of 5·V·log2(V) (pruned share applied separately)
+_T_SPREAD = 1.0 / 2.2e9        # per kernel point written (atoms × wᵈ)
+_T_ATOM = 80e-9                # per atom: projection, phase, sort
+_T_FFT = 1.0 / 1.0e10          # per nominal flop, 5·V·log2(V) (pruned share applied separately)
 _T_POINT = 40e-9               # per output point: deconvolution, factor table, combination
 #: Atomic number density (Å⁻³) assumed to estimate a model's extent when only its atom count
 #: is known (arbitrary q-points; typical of condensed matter).
@@ -76,8 +84,11 @@ def _smooth(n: int) -> int:
         m += 2
 
 
-def _width(tol: float, sigma: float) -> int:
-    return int(_core.gridded_kernel_width(float(tol), float(sigma)))
+def _width(tol: float, sigma: float, stages: int = 1) -> int:
+    """Kernel width for `tol`; `stages` approximation steps share the error budget."""
+    if tol < MIN_TOL:
+        return MAX_WIDTH + 1  # unreachable: treated like a too-wide kernel
+    return int(_core.gridded_kernel_width(float(tol) / stages, float(sigma)))
 
 
 def _fft_cost(dims) -> float:
@@ -118,7 +129,7 @@ def point_estimate(n_atoms: int, n_points: int, extent, qrange, tol: float, sigm
     """Estimated (seconds, bytes per group grid, bytes of the interpolation grid) of the type-3
     path for atoms spanning `extent` (Å, per axis) and q-points spanning `qrange` (Å⁻¹), or
     None when the kernel is too wide."""
-    w = _width(0.5 * tol, sigma)  # two stages share the error budget (as in the core)
+    w = _width(tol, sigma, stages=2)  # spreading and interpolation (as in the core)
     if w > MAX_WIDTH or (sigma < 2.0 and tol < 1e-8):
         # Below 1e-8 the small oversampling factors amplify rounding in the two
         # deconvolutions beyond the tolerance (measured); only σ = 2 is used there.
@@ -152,12 +163,13 @@ def choose(n_atoms: int | None, grid: QGrid, tol: float) -> str:
     -----
     The exact sum costs N·M pairs at about 4·10⁹ pairs/s per core on regular grids (phase
     stepping) and 6·10⁸ on arbitrary points (one sincos per pair). The gridded path costs about
-    N·(wᵈ/1.2·10⁹ + 60 ns) for spreading, 5·V·log₂V/3·10⁹ for the FFT of the fine grid of V
-    points (σᵈ·M for regular grids), plus 40 ns per q-point; w grows with log(1/tol). For
+    N·(wᵈ/2.2·10⁹ + 80 ns) for spreading, 5·V·log₂V/10¹⁰ for the (pruned) FFT of the fine grid
+    of V points (σᵈ·M for regular grids, σ from ``UPSAMPLE_CHOICES``, the cheapest estimate
+    wins), plus 40 ns per q-point; w grows with log(1/tol). For
     arbitrary q-points the fine grid follows the product of the model's extent and the q-range
     per axis; the extent is estimated from the atom count assuming a compact model of density
-    0.1 atoms/Å³. A gridded plan that would not fit in memory, or a tolerance below what the
-    kernel can reach (about 1e-13), selects "exact".
+    0.1 atoms/Å³. A gridded plan that would not fit in memory, or a tolerance below
+    ``MIN_TOL`` (1e-12), selects "exact".
     """
     n = 100_000 if n_atoms is None else int(n_atoms)
     m = grid.size
@@ -173,7 +185,7 @@ def choose(n_atoms: int | None, grid: QGrid, tol: float) -> str:
         side = (n / ASSUMED_DENSITY) ** (1.0 / 3.0)
         q = grid.q.reshape(-1, 3)
         qrange = q.max(axis=0) - q.min(axis=0)
-        ests = [point_estimate(n, m, (side,) * 3, qrange, tol, s) for s in UPSAMPLE_CHOICES]
+        ests = [point_estimate(n, m, (side,) * 3, qrange, tol, s) for s in UPSAMPLE_CHOICES_POINTS]
         ests = [e for e in ests if e is not None and e[1] + e[2] < 0.5 * avail]
     if not ests:
         return "exact"
@@ -220,7 +232,7 @@ def _make_plan(source, grid: QGrid, tol: float, chunk_atoms: int):
         ests = [(e, s) for e, s in ests if e is not None]
         if not ests:
             raise InvalidInputError(
-                f"`tol` = {tol:g} is below what the gridded path reaches (about 1e-13); use method='exact'")
+                f"`tol` = {tol:g} is below what the gridded path reaches ({MIN_TOL:g}); use method='exact'")
         fitting = [(e, s) for e, s in ests if e[1] + 48 * grid.size < 0.8 * avail] or ests
         (_, _), sigma = min(fitting, key=lambda es: es[0][0])
         steps = np.ascontiguousarray(np.asarray(grid.steps, dtype=np.float64).reshape(-1, 3))
@@ -230,11 +242,11 @@ def _make_plan(source, grid: QGrid, tol: float, chunk_atoms: int):
     q = np.ascontiguousarray(grid.q.reshape(-1, 3), dtype=np.float64)
     lo, hi = _bounds(source, chunk_atoms)
     extent, qrange = hi - lo, q.max(axis=0) - q.min(axis=0)
-    ests = [(point_estimate(n, len(q), extent, qrange, tol, s), s) for s in UPSAMPLE_CHOICES]
+    ests = [(point_estimate(n, len(q), extent, qrange, tol, s), s) for s in UPSAMPLE_CHOICES_POINTS]
     ests = [(e, s) for e, s in ests if e is not None]
     if not ests:
         raise InvalidInputError(
-            f"`tol` = {tol:g} is below what the gridded path reaches (about 1e-13); use method='exact'")
+            f"`tol` = {tol:g} is below what the gridded path reaches ({MIN_TOL:g}); use method='exact'")
     fitting = [(e, s) for e, s in ests if e[1] + e[2] + 72 * len(q) < 0.8 * avail] or ests
     est, sigma = min(fitting, key=lambda es: es[0][0])
     check_fits(est[2] + 72 * len(q),
@@ -261,7 +273,8 @@ def gridded_amplitudes(source, grid: QGrid, probe, *, tol: float, threads=None, 
     probe : Probe
         Supplies the scattering factors f(s), s = |q|/4π.
     tol : float
-        Relative l2 tolerance of the amplitude map, 1e-3 … 1e-12 (looser values work too).
+        Relative l2 tolerance of the amplitude map, 1e-3 … 1e-12 (looser values work too;
+        tighter ones are refused).
     threads : int, optional
         Worker threads (None: all cores). Results do not depend on it.
     progress : bool or callable
@@ -323,4 +336,4 @@ def gridded_amplitudes(source, grid: QGrid, probe, *, tol: float, threads=None, 
 
 
 __all__ = ["choose", "gridded_amplitudes", "regular_estimate", "point_estimate", "UPSAMPLE_CHOICES",
-           "MAX_WIDTH", "ASSUMED_DENSITY"]
+           "UPSAMPLE_CHOICES_POINTS", "MAX_WIDTH", "MIN_TOL", "ASSUMED_DENSITY"]

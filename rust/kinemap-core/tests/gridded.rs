@@ -97,7 +97,7 @@ fn regular_grids_meet_the_tolerance() {
         let q = grid_points(*origin, steps, shape);
         let want = direct(&pos, &w, &q);
         for &tol in &TOLS {
-            for &sigma in &[2.0, 1.5] {
+            for &sigma in &[2.25, 2.0, 1.5, 1.25] {
                 if kinemap_core::gridded::width_for(tol, sigma) > kinemap_core::gridded::MAX_WIDTH {
                     continue;
                 }

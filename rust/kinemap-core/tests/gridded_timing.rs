@@ -53,6 +53,11 @@ fn time_regular_volume() {
     let t1 = Instant::now();
     plan.add(&pos, &w, &vec![0; n], Some(threads)).unwrap();
     let t2 = Instant::now();
+    if let Ok(r) = std::fs::read_to_string("/proc/self/smaps_rollup") {
+        for l in r.lines().filter(|l| l.starts_with("AnonHuge")) {
+            eprintln!("{l}");
+        }
+    }
     let out = plan.finish(0, Some(threads)).unwrap();
     let t3 = Instant::now();
     eprintln!(

@@ -8,7 +8,7 @@
 
 use super::fft::{centred, fft3, next_smooth};
 use super::kernel::Kernel;
-use super::spread::{interp, spread, Layout};
+use super::spread::{interp, spread, zeroed_grid, Layout};
 use crate::error::{Error, Result};
 use crate::sincos::{mul_add, sincos};
 use num_complex::Complex64;
@@ -198,8 +198,7 @@ impl RegularPlan {
         crate::pool::run(threads, || {
             for (s, idx) in groups {
                 grow(store, s);
-                let grid =
-                    store[s].get_or_insert_with(|| vec![Complex64::new(0.0, 0.0); lay.len()]);
+                let grid = store[s].get_or_insert_with(|| zeroed_grid(lay.len()));
                 let (g, c): (Vec<[f64; 3]>, Vec<Complex64>) = idx
                     .par_iter()
                     .with_min_len(4096)
@@ -411,8 +410,7 @@ impl PointPlan {
         crate::pool::run(threads, || {
             for (s, idx) in groups {
                 grow(store, s);
-                let grid =
-                    store[s].get_or_insert_with(|| vec![Complex64::new(0.0, 0.0); lay.len()]);
+                let grid = store[s].get_or_insert_with(|| zeroed_grid(lay.len()));
                 let (g, c): (Vec<[f64; 3]>, Vec<Complex64>) = idx
                     .par_iter()
                     .with_min_len(4096)
@@ -479,7 +477,7 @@ impl PointPlan {
                         .collect()
                 })
                 .collect();
-            let mut grid2 = vec![Complex64::new(0.0, 0.0); lay2.len()];
+            let mut grid2 = zeroed_grid(lay2.len());
             for i0 in 0..d1[0] {
                 for i1 in 0..d1[1] {
                     let f = inv[0][i0] * inv[1][i1];

@@ -45,6 +45,41 @@ impl Layout {
     }
 }
 
+/// A zeroed fine grid of `len` values. On Linux the buffer is marked for transparent huge
+/// pages before it is first touched: the kernel's footprint spans dozens of rows in different
+/// 4 KiB pages, and with small pages spreading was bound by address-translation misses.
+pub fn zeroed_grid(len: usize) -> Vec<Complex64> {
+    if len == 0 {
+        return Vec::new();
+    }
+    let layout = std::alloc::Layout::array::<Complex64>(len).expect("fine grid size overflows");
+    // `vec![zero; len]` would write the zeros itself (Complex64 is not known to be all-zero
+    // bits), touching every page with small pages before any advice, and on one thread.
+    // SAFETY: the layout has non-zero size; alloc_zeroed returns memory valid for `len`
+    // Complex64 values, all bits zero, which is 0 + 0i.
+    let ptr = unsafe { std::alloc::alloc_zeroed(layout) } as *mut Complex64;
+    if ptr.is_null() {
+        std::alloc::handle_alloc_error(layout);
+    }
+    #[cfg(target_os = "linux")]
+    {
+        const HUGE: usize = 2 << 20;
+        let start = ptr as usize;
+        let first = start.next_multiple_of(HUGE);
+        let end = (start + layout.size()) / HUGE * HUGE;
+        if end > first {
+            // SAFETY: [first, end) lies inside the allocation; MADV_HUGEPAGE only changes how
+            // the kernel backs these pages, not their contents or validity.
+            unsafe {
+                libc::madvise(first as *mut libc::c_void, end - first, libc::MADV_HUGEPAGE);
+            }
+        }
+    }
+    // SAFETY: `ptr` comes from the global allocator with the layout of `len` Complex64 values,
+    // all of them initialised (zero), so the Vec owns exactly that allocation.
+    unsafe { Vec::from_raw_parts(ptr, len, len) }
+}
+
 /// Bin sizes along axes 1 and 2 for the cache-friendly order inside a slab.
 const BIN1: usize = 4;
 const BIN2: usize = 16;
