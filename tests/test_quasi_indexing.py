@@ -159,8 +159,29 @@ def test_engine_patterns_are_indexed_and_inflation_symmetric():
     res2 = kq.index_peaks(pen, pk2)
     ok2, why2 = res2.verdict()
     assert ok2, why2
-    assert res2.fraction_indexed == 1.0 and res2.index_rank >= 4
+    assert res2.fraction_indexed == 1.0 and res2.index_rank == 4  # Z[ζ₅] has rank 4
     assert res2.scale == pytest.approx(1.0, abs=1e-3)
+
+
+def test_plane_section_of_an_icosahedral_pattern_is_indexed(tmp_path):
+    # the 2-fold plane q_z = 0 of an icosahedral patch (engine): its peaks form a rank-4
+    # submodule (Z[τ]² in the plane), more than the section's 2 dimensions
+    sch = kq.icosahedral()
+    radius = 13.0
+    ps = sch.points(radius)
+    r = np.linalg.norm(ps.positions, axis=1)
+    model = km.Model(ps.positions, "A", occupancy=np.cos(np.pi * r / (2 * radius)) ** 2)
+    grid = km.QGrid.plane([-9, -9, 0], [18, 0, 0], [0, 18, 0], (181, 181))
+    pat = km.scatter(model, grid, probe="unit")
+    pk = kq.find_peaks(pat, threshold=1e-3, min_q=0.5)
+    assert len(pk) >= 30
+    res = kq.index_peaks(sch, pk)
+    ok, why = res.verdict()
+    assert ok, why
+    assert res.fraction_indexed == 1.0 and res.rank_correlation > 0.9
+    assert res.data_dim == 2 and res.index_rank == 4
+    assert np.all(np.abs(res.q_model[res.indexed, 2]) < 1e-12)  # module vectors in the plane
+    assert res.plot(tmp_path / "ico.png", pattern=pat).exists()
 
 
 def _lattice_peaks(a, dim, q_max):

@@ -258,11 +258,29 @@ class IndexingResult:
 
     @property
     def index_rank(self) -> int:
-        """Rank of the Z-module spanned by the indices of the indexed peaks."""
-        h = self.indices[self.indexed]
-        if len(h) == 0:
+        """Rank of the Z-module spanned by the indexed peaks' module vectors.
+
+        Computed as the real rank of the lifted vectors (k, k⊥) over the dense internal
+        directions, which the module embeds into as a lattice (for Penrose indices h and
+        h + (1,1,1,1,1) count once).
+        """
+        ok = self.indexed & (np.linalg.norm(self.q_obs, axis=1) > 0)
+        if not ok.any():
             return 0
-        return int(np.linalg.matrix_rank(h.astype(np.float64)))
+        mv = self.scheme.module(self.indices[ok])
+        dense = np.array(self.scheme.window.dense, dtype=bool)
+        lifted = np.hstack([mv.k_par, mv.k_perp[:, dense]])
+        return int(np.linalg.matrix_rank(lifted, tol=1e-8 * max(1.0, np.abs(lifted).max())))
+
+    @property
+    def data_dim(self) -> int:
+        """Dimension of the space spanned by the indexed peak positions (1 for a line scan,
+        2 for a plane section, up to 3)."""
+        ok = self.indexed & (np.linalg.norm(self.q_obs, axis=1) > 0)
+        if not ok.any():
+            return 0
+        q = self.q_obs[ok]
+        return int(np.linalg.matrix_rank(q, tol=1e-3 * np.abs(q).max()))
 
     @property
     def is_quasiperiodic(self) -> bool:
@@ -280,8 +298,10 @@ class IndexingResult:
         """Decide whether the peaks are those of a quasiperiodic pattern of this scheme.
 
         Conditions: at least `min_fraction` of the peaks indexed within tolerance with
-        |k⊥| ≤ kperp_max (and, with intensities, matching intensities); the indices span the
-        full rank (a periodic crystal's peaks span only rank d); with intensities, a rank
+        |k⊥| ≤ kperp_max (and, with intensities, matching intensities); the indexed module
+        vectors span a Z-module of rank larger than the dimension of the data (the
+        definition of quasiperiodicity: a periodic crystal's peaks, or any section of them,
+        have rank equal to their dimension); with intensities, a rank
         correlation ≥ `min_correlation` between observed and predicted intensities; without
         intensities, fewer than `max_chance` chance matches per peak (λ = 0.5 lets a
         random pattern index about 1 − e^−λ ≈ 40 % of its peaks, well below
@@ -291,10 +311,6 @@ class IndexingResult:
         -------
         (bool, str): the decision and the reason.
         """
-        d_rank = self.scheme.lattice_dim
-        if self.scheme.window.dense.count(False):
-            # the level direction of a sliced window is not an independent rank
-            d_rank -= self.scheme.window.dense.count(False)
         frac = self.fraction_indexed
         with_i = bool(np.isfinite(self.intensity_obs).all())
         if not with_i and self.chance_matches > max_chance:
@@ -302,9 +318,10 @@ class IndexingResult:
                            f"within the tolerance of a peak by chance (give intensities or lower kperp_max)")
         if frac < min_fraction:
             return False, f"only {frac:.0%} of the peaks index with |k⊥| ≤ {self.kperp_max:.3g}"
-        rank = self.index_rank
-        if rank < d_rank:
-            return False, f"the indices span rank {rank} < {d_rank}: a periodic (rank-{rank}) pattern"
+        rank, dim = self.index_rank, self.data_dim
+        if rank <= dim:
+            return False, (f"the indexed peaks span a module of rank {rank}, no more than the data's "
+                           f"dimension ({dim}): a periodic pattern")
         rho = self.rank_correlation
         if np.isfinite(rho) and rho < min_correlation:
             return False, (f"intensities do not follow the window transform (rank correlation "
