@@ -92,38 +92,43 @@ def finufft_run(pos, w, grid, tol, threads):
     return time.perf_counter() - t0, f
 
 
-def exact_sample(pos, grid, n_rows, rng):
-    """Exact amplitudes on a few grid rows (or points), the indices, and the full-map time
-    extrapolated from the measured rate."""
+def exact_sample(pos, grid, rng):
+    """Exact amplitudes (kinemap's exact engine, phase stepping) on a block of consecutive
+    grid rows, where they sit in the map, and the exact time for the whole map extrapolated
+    from the measured rate."""
     model = km.Model(pos, "X")
     if grid.is_regular:
         shape = grid.shape
-        rows = [tuple(int(rng.integers(0, s)) for s in shape[:-1]) for _ in range(n_rows)]
-        vals, idx = [], []
-        t = 0.0
-        for r in rows:
-            start = grid.origin + np.array(r) @ grid.steps[:-1]
-            line = km.QGrid.line(start, start + (shape[-1] - 1) * grid.steps[-1], shape[-1])
-            t0 = time.perf_counter()
-            vals.append(km.scatter(model, line, probe="unit", method="exact").amplitude)
-            t += time.perf_counter() - t0
-            idx.append(r)
-        pairs = len(pos) * shape[-1] * n_rows
-        return idx, vals, t / pairs * len(pos) * grid.size
-    sel = rng.choice(grid.size, size=min(grid.size, 200 * n_rows), replace=False)
-    t0 = time.perf_counter()
-    v = km.scatter(model, km.QGrid.points(grid.q[sel]), probe="unit", method="exact").amplitude
-    t = time.perf_counter() - t0
-    return sel, v, t / (len(pos) * len(sel)) * len(pos) * grid.size
-
-
-def sample_error(out, grid, idx, vals):
-    if grid.is_regular:
-        got = np.concatenate([out[r] for r in idx])
+        n_rows = 4 if len(pos) >= 10**7 else 16
+        n_rows = min(n_rows, shape[-2])
+        lead = tuple(int(rng.integers(0, s)) for s in shape[:-2])
+        r0 = int(rng.integers(0, shape[-2] - n_rows + 1))
+        start = grid.origin + np.array(lead + (r0,), dtype=float) @ grid.steps[:-1]
+        sub = km.QGrid.plane(start, (n_rows - 1) * grid.steps[-2], (shape[-1] - 1) * grid.steps[-1],
+                             (n_rows, shape[-1]))
+        where = lead + (slice(r0, r0 + n_rows), slice(None))
     else:
-        got = out.reshape(-1)[idx]
-    want = np.concatenate(vals) if grid.is_regular else vals
-    return float(np.linalg.norm(got - want) / np.linalg.norm(want))
+        sel = rng.choice(grid.size, size=min(grid.size, 2000), replace=False)
+        sub = km.QGrid.points(grid.q[sel])
+        where = sel
+    t0 = time.perf_counter()
+    vals = km.scatter(model, sub, probe="unit", method="exact").amplitude
+    t = time.perf_counter() - t0
+    return where, vals, t / (len(pos) * sub.size) * len(pos) * grid.size
+
+
+def sample_error(out, grid, where, vals):
+    got = out[where] if grid.is_regular else out.reshape(-1)[where]
+    return float(np.linalg.norm(got - vals) / np.linalg.norm(vals))
+
+
+def best_of(k, fn):
+    best, res = math.inf, None
+    for _ in range(k):
+        r = fn()
+        if r[0] < best:
+            best, res = r[0], r
+    return res
 
 
 def run(cases, tols, thread_list, show_finufft=True):
@@ -135,14 +140,16 @@ def run(cases, tols, thread_list, show_finufft=True):
         pos, _ = atoms(n)
         w = np.ones(n)
         rng = np.random.default_rng(1)
-        idx, vals, t_exact = exact_sample(pos, grid, 2 if n >= 10**7 else 4, rng)
+        idx, vals, t_exact = exact_sample(pos, grid, rng)
+        # Machines shared with other work: best of a few runs for the small cases.
+        reps = 3 if n * grid.size <= 10**6 * 128**3 else 1
         for tol in tols:
             for th in thread_list:
-                t_km, out, plan = kinemap_run(pos, w, grid, tol, th)
+                t_km, out, plan = best_of(reps, lambda: kinemap_run(pos, w, grid, tol, th))
                 e_km = sample_error(out, grid, idx, vals)
                 del out
                 if show_finufft:
-                    t_fi, f = finufft_run(pos, w, grid, tol, th)
+                    t_fi, f = best_of(reps, lambda: finufft_run(pos, w, grid, tol, th))
                     e_fi = sample_error(f.reshape(grid.shape), grid, idx, vals)
                     del f
                 else:
