@@ -58,7 +58,6 @@ def _local_maxima(a: np.ndarray, r: int) -> np.ndarray:
     nd = a.ndim
     pad = np.pad(a, r, mode="constant", constant_values=-np.inf)
     mask = np.ones(a.shape, dtype=bool)
-    center = tuple(slice(r, r + s) for s in a.shape)
     for off in product(range(-r, r + 1), repeat=nd):
         if not any(off):
             continue
@@ -66,7 +65,6 @@ def _local_maxima(a: np.ndarray, r: int) -> np.ndarray:
         nb = pad[sl]
         earlier = off < (0,) * nd  # lexicographic: strictly greater than earlier neighbours
         mask &= (a > nb) if earlier else (a >= nb)
-    _ = center
     return mask
 
 
@@ -88,7 +86,7 @@ def _q_at(grid, qarr, shape, pix: np.ndarray) -> np.ndarray:
 
 
 def find_peaks(data, grid=None, q=None, threshold: float = 1e-3, neighbourhood: int = 1,
-               max_peaks: int | None = None, min_q: float = 0.0) -> Peaks:
+               max_peaks: int | None = None, min_q: float = 0.0, exclude_border: bool = True) -> Peaks:
     """Local maxima of an intensity map, with sub-pixel positions.
 
     Parameters
@@ -102,13 +100,16 @@ def find_peaks(data, grid=None, q=None, threshold: float = 1e-3, neighbourhood: 
     q : array_like, shape data.shape + (3,), optional
         q-vectors (Å⁻¹) of every pixel instead of a grid.
     threshold : float
-        Keep maxima with intensity ≥ threshold × the largest value of the map.
+        Keep maxima with intensity ≥ threshold × the largest value of the map (outside
+        |q| < `min_q`).
     neighbourhood : int
         A maximum must beat all pixels within this many steps along every axis.
     max_peaks : int, optional
         Keep only the strongest ones.
     min_q : float
         Ignore peaks with |q| below this (Å⁻¹), e.g. to drop the forward beam.
+    exclude_border : bool
+        Drop maxima on the edge of the map (a peak just outside the map looks like one).
 
     Returns
     -------
@@ -145,10 +146,25 @@ def find_peaks(data, grid=None, q=None, threshold: float = 1e-3, neighbourhood: 
             raise InvalidInputError("the grid's number of axes does not match the map")
     else:
         raise InvalidInputError("give a Pattern, or the map with `grid` or `q`")
-    top = float(inten.max()) if inten.size else 0.0
-    if top <= 0:
+    region = inten
+    if min_q > 0:
+        # the threshold is relative to the strongest value outside |q| < min_q (the forward
+        # beam would otherwise set it)
+        qall = (qarr.reshape(-1, 3) if qarr is not None else grid.q_vectors())
+        far = (np.linalg.norm(qall, axis=1) >= min_q).reshape(inten.shape)
+        region = np.where(far, inten, -np.inf)
+    top = float(region.max()) if inten.size else 0.0
+    if not np.isfinite(top) or top <= 0:
         return Peaks(np.zeros((0, 3)), np.zeros(0), np.zeros((0, inten.ndim)))
     mask = _local_maxima(inten, int(neighbourhood)) & (inten >= threshold * top)
+    if exclude_border:
+        for ax, n_ax in enumerate(inten.shape):
+            if n_ax > 2:
+                edge = [slice(None)] * inten.ndim
+                edge[ax] = 0
+                mask[tuple(edge)] = False
+                edge[ax] = n_ax - 1
+                mask[tuple(edge)] = False
     idx = np.argwhere(mask)
     nd = inten.ndim
     pix = idx.astype(np.float64)
@@ -235,6 +251,15 @@ class IndexingResult:
         return float(self.indexed.mean()) if len(self) else 0.0
 
     @property
+    def intensity_fraction(self) -> float:
+        """Share of the observed intensity (peaks with q ≠ 0) carried by indexed peaks."""
+        ok = np.linalg.norm(self.q_obs, axis=1) > 0
+        io = self.intensity_obs[ok]
+        if not np.isfinite(io).all() or io.sum() <= 0:
+            return float("nan")
+        return float(io[self.indexed[ok]].sum() / io.sum())
+
+    @property
     def edge_length(self) -> float:
         """Edge length (Å) implied by the fitted scale: scheme edge / scale."""
         return self.scheme.edge_length / self.scale
@@ -297,8 +322,10 @@ class IndexingResult:
                 max_chance: float = 0.5) -> tuple[bool, str]:
         """Decide whether the peaks are those of a quasiperiodic pattern of this scheme.
 
-        Conditions: at least `min_fraction` of the peaks indexed within tolerance with
-        |k⊥| ≤ kperp_max (and, with intensities, matching intensities); the indexed module
+        Conditions: at least `min_fraction` of the observed intensity (without intensities:
+        of the peaks) indexed within tolerance with |k⊥| ≤ kperp_max and, with intensities,
+        matching intensities — weak maxima from noise or finite-size ripples then matter
+        little; the indexed module
         vectors span a Z-module of rank larger than the dimension of the data (the
         definition of quasiperiodicity: a periodic crystal's peaks, or any section of them,
         have rank equal to their dimension); with intensities, a rank
@@ -311,13 +338,19 @@ class IndexingResult:
         -------
         (bool, str): the decision and the reason.
         """
-        frac = self.fraction_indexed
-        with_i = bool(np.isfinite(self.intensity_obs).all())
+        with_i = bool(np.isfinite(self.intensity_obs).all()) and np.isfinite(self.intensity_fraction)
         if not with_i and self.chance_matches > max_chance:
             return False, (f"undecided from positions alone: {self.chance_matches:.2g} module vectors fall "
                            f"within the tolerance of a peak by chance (give intensities or lower kperp_max)")
-        if frac < min_fraction:
-            return False, f"only {frac:.0%} of the peaks index with |k⊥| ≤ {self.kperp_max:.3g}"
+        if with_i:
+            frac = self.intensity_fraction
+            if frac < min_fraction:
+                return False, (f"indexed peaks carry only {frac:.0%} of the intensity "
+                               f"(|k⊥| ≤ {self.kperp_max:.3g}, intensities within the allowed factor)")
+        else:
+            frac = self.fraction_indexed
+            if frac < min_fraction:
+                return False, f"only {frac:.0%} of the peaks index with |k⊥| ≤ {self.kperp_max:.3g}"
         rank, dim = self.index_rank, self.data_dim
         if rank <= dim:
             return False, (f"the indexed peaks span a module of rank {rank}, no more than the data's "
@@ -327,7 +360,8 @@ class IndexingResult:
             return False, (f"intensities do not follow the window transform (rank correlation "
                            f"{rho:.2f} < {min_correlation})")
         extra = "" if not np.isfinite(rho) else f", intensity rank correlation {rho:.2f}"
-        return True, f"{frac:.0%} indexed, index rank {rank}{extra}"
+        what = "of the intensity indexed" if with_i else "of the peaks indexed"
+        return True, f"{frac:.0%} {what} ({self.fraction_indexed:.0%} of the peaks), index rank {rank}{extra}"
 
     def rows(self) -> list[dict]:
         """One dict per peak (indices, q_obs, |q|, q_perp, residual, intensities)."""
@@ -517,7 +551,9 @@ def index_peaks(scheme: CutProjectScheme, peaks, intensity=None, *, scale: float
     elif have_i:
         pos = inten[nonzero_mask]
         dyn = max(float(pos[pos > 0].min() / pos.max()) if (pos > 0).any() else min_predicted, 1e-8)
-        kpm = kperp_bound(scheme, min(dyn / intensity_factor, 0.5))
+        # bounded below: beyond |T|² ~ 1e-3 the search grows like kperp_max^e while only
+        # the weakest peaks could still be explained (they count little in the verdict)
+        kpm = kperp_bound(scheme, min(max(dyn / intensity_factor, 1e-3), 0.5))
     else:
         kpm = kperp_bound(scheme, min_predicted)
     log_f = float(np.log(intensity_factor))

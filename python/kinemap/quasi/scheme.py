@@ -750,11 +750,11 @@ class StreamingPatch:
         self.species = species
 
     def iter_chunks(self, chunk_atoms: int):
-        for ps in self.scheme.iter_points(self.radius, self.center, chunk_points=max(1, chunk_atoms // 2)):
-            start = 0
-            while start < len(ps):
-                yield ps.subset(slice(start, start + chunk_atoms)).to_model(self.species)
-                start += chunk_atoms
+        """Yield the patch as :class:`kinemap.Model` pieces of at most `chunk_atoms` atoms."""
+        from ..model import Model
+
+        for pos in self.scheme.iter_positions(self.radius, self.center, chunk_points=int(chunk_atoms)):
+            yield Model(pos, self.species)
 
     def species_labels(self) -> list[str]:
         return [self.species]

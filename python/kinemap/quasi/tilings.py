@@ -191,12 +191,24 @@ def pell_ratio(n: int) -> tuple[int, int]:
 
 
 def icosahedral_approximant(p: int, q: int, edge: float = 1.0, shift=None) -> CutProjectScheme:
-    """Cubic p/q approximant of the icosahedral set (τ replaced by p/q, e.g. 1/1, 2/1, 3/2).
+    """Cubic p/q approximant of the icosahedral set (τ replaced by p/q: 1/1, 2/1, 3/2, …).
 
-    Returns a periodic scheme; its :meth:`~CutProjectScheme.cell` is cubic with edge
-    proportional to (p τ + q)... see the scheme's periods. A default small generic shift is
-    advisable for approximants (rational internal projections put lattice points on window
-    faces); boundary points are otherwise decided by the regularisation rule.
+    Parameters
+    ----------
+    p, q : int
+        The rational replacement p/q of τ (consecutive Fibonacci numbers).
+    edge : float
+        Rhombohedron edge in Å.
+    shift : array_like (3,), optional
+        Phason shift. Rational internal projections put many lattice points on window
+        faces; they are decided by the regularisation rule, but a small generic shift gives
+        the usual approximant structures.
+
+    Returns
+    -------
+    CutProjectScheme
+        Periodic: cube edge 2(pτ + q)/√(2+τ)·edge; for p + q even the lattice is
+        body-centred and :meth:`~CutProjectScheme.cell` gives primitive vectors.
     """
     return icosahedral(edge, shift).approximant((int(p), int(q)), name=f"icosahedral {p}/{q} approximant")
 
