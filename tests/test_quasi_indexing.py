@@ -172,6 +172,24 @@ def test_engine_patterns_are_indexed_and_inflation_symmetric():
     assert ok2, why2
     assert res2.fraction_indexed == 1.0 and res2.index_rank == 4  # Z[ζ₅] has rank 4
     assert res2.scale == pytest.approx(1.0, abs=1e-3)
+    # inflation by τ in the plane; positions are pixel-limited (0.067 1/Å pixels)
+    chk2 = kq.inflation_check(res2)
+    assert len(chk2.pairs) >= 10
+    np.testing.assert_allclose(chk2.position_ratio, TAU, rtol=0.01)
+    np.testing.assert_allclose(chk2.intensity_ratio, chk2.predicted_ratio, rtol=0.12)
+
+    # Ammann–Beenker: inflation by the silver mean 1 + √2
+    oc = kq.octagonal()
+    ops = oc.points(20.0)
+    r = np.linalg.norm(ops.positions, axis=1)
+    g3 = km.QGrid.plane([-12, -12, 0], [24, 0, 0], [0, 24, 0], (361, 361))
+    pat3 = km.scatter(km.Model(ops.positions, "A", occupancy=np.cos(np.pi * r / 40) ** 2), g3, probe="unit")
+    res3 = kq.index_peaks(oc, kq.find_peaks(pat3, threshold=1e-2, min_q=0.5))
+    assert res3.is_quasiperiodic
+    chk3 = kq.inflation_check(res3)
+    assert chk3.factor == pytest.approx(1 + math.sqrt(2)) and len(chk3.pairs) >= 8
+    np.testing.assert_allclose(chk3.position_ratio, 1 + math.sqrt(2), rtol=0.01)
+    np.testing.assert_allclose(chk3.intensity_ratio, chk3.predicted_ratio, rtol=0.05)
 
 
 def test_plane_section_of_an_icosahedral_pattern_is_indexed(tmp_path):
