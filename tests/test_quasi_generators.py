@@ -340,6 +340,8 @@ def test_phason_jitter_is_local_and_reproducible():
     (lambda: kq.octagonal().cell(), "not periodic"),
     (lambda: list(kq.octagonal().iter_points(5.0, chunk_points=0)), "chunk_points"),
     (lambda: kq.phason_jitter_points(kq.octagonal(), 5.0, sigma=-1), "sigma"),
+    (lambda: kq.icosahedral().points(5000.0), "stream it in chunks"),  # refused before allocating
+    (lambda: kq.fibonacci().chain_points(0, 10 ** 13), "memory"),
 ])
 def test_bad_input_raises_clear_errors(call, match):
     with pytest.raises(InvalidInputError, match=match):

@@ -33,7 +33,7 @@ import numpy as np
 from ..errors import InvalidInputError
 from ._precise import (dd_floor, dd_frac, dd_mul, inv_two_pi_dd, metallic_mean_decimal, split_decimal,
                        two_prod, two_sum)
-from .scheme import CutProjectScheme, PointSet, embed3
+from .scheme import CutProjectScheme, PointSet, check_fits, embed3
 from .windows import IntervalWindow
 
 #: Largest generation whose tile counts stay exact in float64 arithmetic (< 2**53).
@@ -115,6 +115,7 @@ class ChainScheme(CutProjectScheme):
         """
         if stop < start:
             raise InvalidInputError(f"`stop` ({stop}) must be >= `start` ({start})")
+        check_fits(80.0 * (int(stop) - int(start)), f"a chain of {int(stop) - int(start):,} points")
         n = np.arange(int(start), int(stop), dtype=np.int64)
         b = self.long_counts(n)
         a = n - b

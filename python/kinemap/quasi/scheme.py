@@ -21,11 +21,21 @@ from itertools import combinations, product
 
 import numpy as np
 
+from .._resources import available_memory, human_bytes
 from ..errors import InvalidInputError
 from ._enumerate import StripEnumerator
 from ._precise import saturated_lattice
 from .windows import (BallWindow, BoxWindow, IntervalWindow, PolygonWindow, PolyhedronWindow, SlicedWindow,
                       Window, _zonogon, convex_hull_2d)
+
+
+def check_fits(n_bytes: float, what: str) -> None:
+    """Refuse, before allocating, a patch that cannot fit in the available memory."""
+    avail = available_memory()
+    if n_bytes > 0.8 * avail:
+        raise InvalidInputError(
+            f"{what} would need about {human_bytes(n_bytes)}, but only {human_bytes(avail)} of memory is "
+            "available; stream it in chunks (iter_points / iter_positions / source) or use a smaller radius")
 
 
 def embed3(x: np.ndarray) -> np.ndarray:
@@ -284,8 +294,8 @@ class CutProjectScheme:
         chunk by chunk, so the peak memory is the result plus one chunk.
         """
         radius, c = self._check_region(radius, center)
-        vol = {1: 2 * radius, 2: np.pi * radius ** 2, 3: 4 / 3 * np.pi * radius ** 3}[self.dim]
-        cap = int(self.density * vol * 1.02) + 1024
+        cap = int(self.expected_count(radius) * 1.02) + 1024
+        check_fits(24.0 * cap, f"a patch of about {cap:,} points (positions)")
         out = np.empty((cap, 3))
         n = 0
         for chunk in self.iter_positions(radius, c, chunk_points):
@@ -298,8 +308,26 @@ class CutProjectScheme:
             n += k
         return out[:n].copy() if n < 0.9 * len(out) else out[:n]
 
+    def expected_count(self, radius) -> float:
+        """Expected number of points in a patch of `radius` Å: density × ball volume."""
+        r = float(radius)
+        vol = {1: 2 * r, 2: np.pi * r ** 2, 3: 4 / 3 * np.pi * r ** 3}[self.dim]
+        return self.density * vol
+
     def points(self, radius, center=None, with_indices: bool = True) -> PointSet:
-        """All points within `radius` (Å) of `center`: see :meth:`iter_points`."""
+        """All points within `radius` (Å) of `center`: see :meth:`iter_points`.
+
+        Raises
+        ------
+        InvalidInputError
+            When the patch (positions, internal coordinates and indices, twice while they
+            are joined) would not fit in the available memory; the message gives the
+            estimate. Use :meth:`iter_points` or :meth:`positions` for huge patches.
+        """
+        radius, _ = self._check_region(radius, center)
+        n = self.expected_count(radius)
+        per = 24 + 8 * self.internal_dim + (8 * self.lattice_dim if with_indices else 0)
+        check_fits(2.0 * per * n, f"a patch of about {int(n):,} points with internal coordinates")
         return PointSet.concatenate(self.iter_points(radius, center, 1 << 22, with_indices), scheme=self)
 
     def model(self, radius, center=None, species="A", **model_options):
