@@ -7,12 +7,13 @@
 //! `c · Π_a φ_a(l_a − g_a)` to the `w0 × w1 × w2` points `l_a = ⌈g_a − w_a/2⌉ + i`.
 //!
 //! Parallel spreading without data races, and with a result that does not depend on the
-//! thread count: the grid is cut along axis 0 into an even number of slabs at least `w0`
-//! planes thick, so a point that starts in slab `s` only writes into slabs `s` and `s + 1`.
-//! Points are sorted (stable counting sort) by slab and, inside a slab, by small bins of the
-//! other axes for cache reuse. All even slabs are then spread concurrently, each by one task
-//! over its points in sorted order, followed by all odd slabs. Every grid value therefore
-//! receives its contributions in one fixed order, whatever the number of threads.
+//! thread count: axes 0 and 1 are cut into an even number of slabs at least `w` points thick
+//! (a checkerboard of tiles), so a point whose first grid point lies in tile `(s0, s1)` only
+//! writes into tiles `s0..=s0+1 × s1..=s1+1`. Points are sorted (stable counting sort) by
+//! tile and, inside a tile, by small bins for cache reuse. The tiles are spread in four
+//! phases by the parities of `(s0, s1)`; within a phase the tasks' footprints are disjoint
+//! and each task adds its points in sorted order. Every grid value therefore receives its
+//! contributions in one fixed order, whatever the number of threads.
 
 use super::kernel::{first_point, Kernel, MAX_WIDTH};
 use num_complex::Complex64;
@@ -45,42 +46,29 @@ impl Layout {
     }
 }
 
-/// A zeroed fine grid of `len` values. On Linux the buffer is marked for transparent huge
-/// pages before it is first touched: the kernel's footprint spans dozens of rows in different
-/// 4 KiB pages, and with small pages spreading was bound by address-translation misses.
+/// A zeroed fine grid of `len` values, obtained from the allocator already zeroed (fresh
+/// pages from the operating system), so the zeroing happens on first touch, in parallel,
+/// during spreading. (Transparent huge pages were tried: a small gain on bare metal, but in
+/// virtual machines the first touch of huge pages doubled the time.)
 pub fn zeroed_grid(len: usize) -> Vec<Complex64> {
     if len == 0 {
         return Vec::new();
     }
     let layout = std::alloc::Layout::array::<Complex64>(len).expect("fine grid size overflows");
     // `vec![zero; len]` would write the zeros itself (Complex64 is not known to be all-zero
-    // bits), touching every page with small pages before any advice, and on one thread.
+    // bits), touching every page up front on one thread.
     // SAFETY: the layout has non-zero size; alloc_zeroed returns memory valid for `len`
     // Complex64 values, all bits zero, which is 0 + 0i.
     let ptr = unsafe { std::alloc::alloc_zeroed(layout) } as *mut Complex64;
     if ptr.is_null() {
         std::alloc::handle_alloc_error(layout);
     }
-    #[cfg(target_os = "linux")]
-    {
-        const HUGE: usize = 2 << 20;
-        let start = ptr as usize;
-        let first = start.next_multiple_of(HUGE);
-        let end = (start + layout.size()) / HUGE * HUGE;
-        if end > first {
-            // SAFETY: [first, end) lies inside the allocation; MADV_HUGEPAGE only changes how
-            // the kernel backs these pages, not their contents or validity.
-            unsafe {
-                libc::madvise(first as *mut libc::c_void, end - first, libc::MADV_HUGEPAGE);
-            }
-        }
-    }
     // SAFETY: `ptr` comes from the global allocator with the layout of `len` Complex64 values,
     // all of them initialised (zero), so the Vec owns exactly that allocation.
     unsafe { Vec::from_raw_parts(ptr, len, len) }
 }
 
-/// Bin sizes along axes 1 and 2 for the cache-friendly order inside a slab.
+/// Bin sizes along axes 1 and 2 for the cache-friendly order inside a tile.
 const BIN1: usize = 4;
 const BIN2: usize = 16;
 
@@ -97,19 +85,25 @@ fn axis_setup(ker: &Kernel, g: f64, n: usize, w: usize, k: &mut [f64; MAX_WIDTH]
     l0.rem_euclid(n as i64) as usize
 }
 
-/// Slab partition of axis 0: `(thickness, count)`; `count` is even or 1.
-fn slabs(lay: &Layout) -> (usize, usize) {
-    let n0 = lay.dims[0];
-    let t = lay.widths[0].max(8);
-    let mut s = n0 / t;
+/// Slab partition of axis `a`: `(thickness, count)`; `count` is even or 1.
+fn slabs(lay: &Layout, a: usize) -> (usize, usize) {
+    let n = lay.dims[a];
+    let t = lay.widths[a].max(8);
+    let mut s = n / t;
     if s % 2 == 1 {
         s -= 1;
     }
     if s < 2 {
-        (n0, 1)
+        (n, 1)
     } else {
         (t, s)
     }
+}
+
+/// Slab of a first grid point `i` along an axis partitioned as `(thick, count)`.
+#[inline(always)]
+fn slab_of(i: usize, thick: usize, count: usize) -> usize {
+    (i / thick).min(count - 1)
 }
 
 /// View a complex slice as interleaved `re, im` doubles.
@@ -126,30 +120,23 @@ fn as_f64(v: &[Complex64]) -> &[f64] {
     unsafe { std::slice::from_raw_parts(v.as_ptr() as *const f64, 2 * v.len()) }
 }
 
-/// The (up to) two slabs a task may write: planes `[start, start + len)` of each.
-struct Planes<'a> {
-    parts: [(&'a mut [f64], usize, usize); 2],
-    plane: usize,
-}
+/// Raw pointer to the grid (interleaved doubles) shared by the spreading tasks of one phase.
+#[derive(Clone, Copy)]
+struct GridPtr(*mut f64, usize);
+// SAFETY: used only inside `spread`, where the tasks of one phase write pairwise disjoint sets
+// of grid points (see the module notes) while the grid is exclusively borrowed.
+unsafe impl Send for GridPtr {}
+// SAFETY: as above.
+unsafe impl Sync for GridPtr {}
 
-impl Planes<'_> {
-    #[inline(always)]
-    fn get(&mut self, p: usize) -> &mut [f64] {
-        let plane = self.plane;
-        for (buf, start, len) in self.parts.iter_mut() {
-            if p >= *start && p < *start + *len {
-                let o = (p - *start) * plane;
-                return &mut buf[o..o + plane];
-            }
-        }
-        unreachable!("plane {p} outside the task's slabs")
-    }
-}
-
-/// Add `c · φ ⊗ φ ⊗ φ` of the points `idx` (indices into `g`, `c`) to the slabs of `planes`.
+/// Add `c · φ ⊗ φ ⊗ φ` of the points `g` with weights `c` to the grid behind `grid`.
+///
+/// # Safety
+/// `grid` must point to `2·lay.len()` valid doubles, and no other thread may access the
+/// points these atoms' kernels cover while this runs.
 #[inline(always)]
-fn spread_points<const W: usize>(
-    planes: &mut Planes<'_>,
+unsafe fn spread_points<const W: usize>(
+    grid: GridPtr,
     lay: &Layout,
     ker: &Kernel,
     g: &[[f64; 3]],
@@ -157,6 +144,7 @@ fn spread_points<const W: usize>(
 ) {
     let [n0, n1, n2] = lay.dims;
     let [w0, w1, _] = lay.widths;
+    let plane = 2 * n1 * n2;
     let (mut k0, mut k1, mut k2) = ([0.0; MAX_WIDTH], [0.0; MAX_WIDTH], [0.0; MAX_WIDTH]);
     let mut kc = [0.0f64; 2 * MAX_WIDTH];
     let mut rows = [0usize; MAX_WIDTH];
@@ -173,7 +161,7 @@ fn spread_points<const W: usize>(
             if y >= n1 {
                 y -= n1;
             }
-            *r = y * n2;
+            *r = 2 * y * n2;
         }
         let contiguous = i2 + W <= n2;
         for (a, &ka) in k0.iter().enumerate().take(w0) {
@@ -181,12 +169,15 @@ fn spread_points<const W: usize>(
             if p >= n0 {
                 p -= n0;
             }
-            let plane = planes.get(p);
+            let base = p * plane;
             for b in 0..w1 {
                 let f = ka * k1[b];
                 if contiguous {
-                    let o = 2 * (rows[b] + i2);
-                    let row = &mut plane[o..o + 2 * W];
+                    let o = base + rows[b] + 2 * i2;
+                    debug_assert!(o + 2 * W <= grid.1);
+                    // SAFETY: o + 2W ≤ 2·len (indices wrapped into the grid, contiguous run
+                    // checked above); exclusive access by the caller's contract.
+                    let row = unsafe { std::slice::from_raw_parts_mut(grid.0.add(o), 2 * W) };
                     for i in 0..2 * W {
                         row[i] = crate::sincos::mul_add(f, kc[i], row[i]);
                     }
@@ -196,9 +187,14 @@ fn spread_points<const W: usize>(
                         if z >= n2 {
                             z -= n2;
                         }
-                        let o = 2 * (rows[b] + z);
-                        plane[o] = crate::sincos::mul_add(f, kc[2 * i], plane[o]);
-                        plane[o + 1] = crate::sincos::mul_add(f, kc[2 * i + 1], plane[o + 1]);
+                        let o = base + rows[b] + 2 * z;
+                        debug_assert!(o + 2 <= grid.1);
+                        // SAFETY: as above, for one wrapped point.
+                        unsafe {
+                            *grid.0.add(o) = crate::sincos::mul_add(f, kc[2 * i], *grid.0.add(o));
+                            *grid.0.add(o + 1) =
+                                crate::sincos::mul_add(f, kc[2 * i + 1], *grid.0.add(o + 1));
+                        }
                     }
                 }
             }
@@ -206,19 +202,25 @@ fn spread_points<const W: usize>(
     }
 }
 
-/// Sort points by slab and bin (stable counting sort); returns the sorted coordinates and
-/// weights and the start of every slab's run.
+/// Sort points by tile and bin (stable counting sort); returns the sorted coordinates and
+/// weights and the start of every tile's run (tiles in row-major `(s0, s1)` order).
 fn sort_points(
     lay: &Layout,
     g: &[[f64; 3]],
     c: &[Complex64],
-    thick: usize,
-    n_slabs: usize,
+    part0: (usize, usize),
+    part1: (usize, usize),
 ) -> (Vec<[f64; 3]>, Vec<Complex64>, Vec<usize>) {
     let [n0, n1, n2] = lay.dims;
-    let nb1 = n1.div_ceil(BIN1);
+    let max1 = if part1.1 == 1 {
+        n1
+    } else {
+        n1 - (part1.1 - 1) * part1.0
+    };
+    let nb1 = max1.div_ceil(BIN1);
     let nb2 = n2.div_ceil(BIN2);
-    let per_slab = nb1 * nb2;
+    let per_tile = nb1 * nb2;
+    let n_tiles = part0.1 * part1.1;
     let first = |x: f64, n: usize, w: usize| -> usize {
         if n == 1 {
             0
@@ -230,13 +232,15 @@ fn sort_points(
         .par_iter()
         .with_min_len(4096)
         .map(|p| {
-            let s = (first(p[0], n0, lay.widths[0]) / thick).min(n_slabs - 1);
-            let b1 = first(p[1], n1, lay.widths[1]) / BIN1;
+            let s0 = slab_of(first(p[0], n0, lay.widths[0]), part0.0, part0.1);
+            let i1 = first(p[1], n1, lay.widths[1]);
+            let s1 = slab_of(i1, part1.0, part1.1);
+            let b1 = (i1 - s1 * part1.0) / BIN1;
             let b2 = first(p[2], n2, lay.widths[2]) / BIN2;
-            ((s * nb1 + b1) * nb2 + b2) as u32
+            (((s0 * part1.1 + s1) * nb1 + b1) * nb2 + b2) as u32
         })
         .collect();
-    let n_bins = n_slabs * per_slab;
+    let n_bins = n_tiles * per_tile;
     let mut start = vec![0usize; n_bins + 1];
     for &k in &keys {
         start[k as usize + 1] += 1;
@@ -244,7 +248,7 @@ fn sort_points(
     for b in 0..n_bins {
         start[b + 1] += start[b];
     }
-    let slab_start: Vec<usize> = (0..=n_slabs).map(|s| start[s * per_slab]).collect();
+    let tile_start: Vec<usize> = (0..=n_tiles).map(|t| start[t * per_tile]).collect();
     let mut next = start;
     let mut gs = vec![[0.0; 3]; g.len()];
     let mut cs = vec![Complex64::new(0.0, 0.0); g.len()];
@@ -254,7 +258,7 @@ fn sort_points(
         cs[*d] = *cj;
         *d += 1;
     }
-    (gs, cs, slab_start)
+    (gs, cs, tile_start)
 }
 
 macro_rules! dispatch_width {
@@ -284,75 +288,42 @@ macro_rules! dispatch_width {
 /// Add the spread of points at grid coordinates `g` with weights `c` to `grid`
 /// (`lay.len()` values, row-major). Runs on the current rayon pool.
 pub fn spread(grid: &mut [Complex64], lay: &Layout, ker: &Kernel, g: &[[f64; 3]], c: &[Complex64]) {
-    debug_assert_eq!(grid.len(), lay.len());
+    assert_eq!(grid.len(), lay.len(), "grid and layout sizes differ");
     if g.is_empty() {
         return;
     }
-    let (thick, n_slabs) = slabs(lay);
-    let (gs, cs, slab_start) = sort_points(lay, g, c, thick, n_slabs);
-    let plane = 2 * lay.dims[1] * lay.dims[2];
+    let part0 = slabs(lay, 0);
+    let part1 = slabs(lay, 1);
+    let (gs, cs, tile_start) = sort_points(lay, g, c, part0, part1);
     let flat = as_f64_mut(grid);
+    let ptr = GridPtr(flat.as_mut_ptr(), flat.len());
     let w2 = lay.widths[2];
-    if n_slabs == 1 {
-        let (a, b) = flat.split_at_mut(flat.len());
-        let mut planes = Planes {
-            parts: [(a, 0, lay.dims[0]), (b, lay.dims[0], 0)],
-            plane,
-        };
-        dispatch_width!(w2, spread_points, &mut planes, lay, ker, &gs, &cs);
+    let run = |t: usize| {
+        let r = tile_start[t]..tile_start[t + 1];
+        // SAFETY: `ptr` covers the whole grid; the tiles of one phase have disjoint
+        // footprints (tile thickness ≥ kernel width, even tile counts), and phases run one
+        // after another, so no grid point is touched by two threads at once.
+        unsafe { dispatch_width!(w2, spread_points, ptr, lay, ker, &gs[r.clone()], &cs[r]) };
+    };
+    let (s0n, s1n) = (part0.1, part1.1);
+    let p0s: &[usize] = if s0n > 1 { &[0, 1] } else { &[0] };
+    let p1s: &[usize] = if s1n > 1 { &[0, 1] } else { &[0] };
+    if s0n == 1 && s1n == 1 {
+        run(0);
         return;
     }
-    let bounds = |s: usize| -> (usize, usize) {
-        let p0 = s * thick;
-        let p1 = if s + 1 == n_slabs {
-            lay.dims[0]
-        } else {
-            p0 + thick
-        };
-        (p0, p1 - p0)
-    };
-    for phase in 0..2 {
-        // Cut the grid into slabs, then pair slab s (of this phase's parity) with s + 1.
-        let mut parts: Vec<&mut [f64]> = Vec::with_capacity(n_slabs);
-        let mut rest: &mut [f64] = &mut *flat;
-        for s in 0..n_slabs {
-            let (_, len) = bounds(s);
-            let (head, tail) = rest.split_at_mut(len * plane);
-            parts.push(head);
-            rest = tail;
+    for &p0 in p0s {
+        for &p1 in p1s {
+            let tiles: Vec<usize> = (0..s0n)
+                .filter(|s0| s0n == 1 || s0 % 2 == p0)
+                .flat_map(|s0| {
+                    (0..s1n)
+                        .filter(move |s1| s1n == 1 || s1 % 2 == p1)
+                        .map(move |s1| s0 * s1n + s1)
+                })
+                .collect();
+            tiles.into_par_iter().for_each(|t| run(t));
         }
-        let mut tasks = Vec::with_capacity(n_slabs / 2);
-        let mut it = parts.into_iter();
-        let mut slab0 = if phase == 1 { it.next() } else { None };
-        let mut s = phase;
-        while s < n_slabs {
-            let a = it.next().expect("slab");
-            let b = if s + 1 < n_slabs {
-                it.next().expect("slab")
-            } else {
-                slab0.take().expect("slab 0")
-            };
-            tasks.push((s, a, b));
-            s += 2;
-        }
-        tasks.into_par_iter().for_each(|(s, a, b)| {
-            let (pa, la) = bounds(s);
-            let (pb, lb) = bounds((s + 1) % n_slabs);
-            let mut planes = Planes {
-                parts: [(a, pa, la), (b, pb, lb)],
-                plane,
-            };
-            let r = slab_start[s]..slab_start[s + 1];
-            dispatch_width!(
-                w2,
-                spread_points,
-                &mut planes,
-                lay,
-                ker,
-                &gs[r.clone()],
-                &cs[r]
-            );
-        });
     }
 }
 
