@@ -88,7 +88,6 @@ def test_octagon_transform_against_quadrature_and_divergence_theorem():
     k = np.array([[0.31, 0.17], [0.7, -0.2]])
     # scipy: integrate exp(−2πi k·y) over the octagon, as x-slices between its chains
     xs = np.sort(np.unique(np.round(v[:, 0], 12)))
-    lo_edges, hi_edges = [], []
 
     def y_range(x):
         ys = []
@@ -103,7 +102,6 @@ def test_octagon_transform_against_quadrature_and_divergence_theorem():
         im = integrate.dblquad(lambda y, x: -math.sin(2 * math.pi * (kk[0] * x + kk[1] * y)), xs[0], xs[-1],
                                lambda x: y_range(x)[0], lambda x: y_range(x)[1], epsabs=1e-11)[0]
         assert w.integral(kk[None, :])[0] == pytest.approx(complex(re, im), abs=1e-8)
-    del lo_edges, hi_edges
     # divergence theorem (sum over edges) gives the same numbers
     kr = np.random.default_rng(2).normal(size=(30, 2))
     np.testing.assert_allclose(w.integral(kr), w.integral_by_edges(kr), atol=1e-12)

@@ -93,10 +93,10 @@ class ChainScheme(CutProjectScheme):
 
     # ------------------------------------------------------------------ closed form
     def long_counts(self, n) -> np.ndarray:
-        """b_n: the number of long tiles among tiles 0..n−1 of the point set indexed by n
-        (x_0 is the point whose internal coordinate lies in the window for b = 0 …).
+        """b_n = ⌊(n − c + 1)·λ/(λ+1)⌋: the number of long steps among the first n steps, so
+        that point n is x_n = (n − b_n) S + b_n L (c = shift/S).
 
-        Exact for |n| < 2**52 (double-double floor)."""
+        Computed with a double-double product and floor, exact for |n| < 2**52."""
         n = np.asarray(n, dtype=np.int64)
         if np.abs(n).max(initial=0) >= 2 ** 52:
             raise InvalidInputError("tile index too large for exact evaluation (|n| must be < 2**52)")
