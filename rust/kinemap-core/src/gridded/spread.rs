@@ -322,7 +322,7 @@ pub fn spread(grid: &mut [Complex64], lay: &Layout, ker: &Kernel, g: &[[f64; 3]]
                         .map(move |s1| s0 * s1n + s1)
                 })
                 .collect();
-            tiles.into_par_iter().for_each(&run);
+            tiles.into_par_iter().for_each(run);
         }
     }
 }
