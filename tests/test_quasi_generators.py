@@ -208,8 +208,16 @@ def test_streaming_source_into_engine():
     sch = kq.octagonal()
     q = sch.module([[1, 0, 0, 0], [1, 1, 0, 0]]).q
     whole = km.scatter(sch.model(25.0), km.QGrid.points(q), probe="unit").amplitude
-    streamed = km.scatter(sch.source(25.0), km.QGrid.points(q), probe="unit", chunk_atoms=300).amplitude
+    src = sch.source(25.0)
+    streamed = km.scatter(src, km.QGrid.points(q), probe="unit", chunk_atoms=300).amplitude
     np.testing.assert_allclose(streamed, whole, rtol=1e-12, atol=1e-9)
+    assert src.n_atoms == sch.model(25.0).n_atoms
+    # the gridded (FFT) engine takes the same streamed source; it promises a relative
+    # accuracy `tol`, checked here against the exact sums with a margin
+    grid = km.QGrid.plane([-6, -6, 0], [12, 0, 0], [0, 12, 0], (48, 48))
+    exact = km.scatter(src, grid, probe="unit", method="exact").amplitude
+    fast = km.scatter(src, grid, probe="unit", method="gridded", tol=1e-6).amplitude
+    assert np.abs(fast - exact).max() <= 1e-4 * np.abs(exact).max()
 
 
 # --------------------------------------------------------------------------- approximants

@@ -776,6 +776,7 @@ class StreamingPatch:
         if not isinstance(species, str) or not species:
             raise InvalidInputError(f"`species` must be one non-empty label, got {species!r}")
         self.species = species
+        self._count = None
 
     def iter_chunks(self, chunk_atoms: int):
         """Yield the patch as :class:`kinemap.Model` pieces of at most `chunk_atoms` atoms."""
@@ -783,6 +784,13 @@ class StreamingPatch:
 
         for pos in self.scheme.iter_positions(self.radius, self.center, chunk_points=int(chunk_atoms)):
             yield Model(pos, self.species)
+
+    @property
+    def n_atoms(self) -> int:
+        """Number of points (counted once by a generation pass, then cached)."""
+        if self._count is None:
+            self._count = sum(len(p) for p in self.scheme.iter_positions(self.radius, self.center))
+        return self._count
 
     def species_labels(self) -> list[str]:
         return [self.species]
