@@ -1,8 +1,10 @@
 """Quasicrystal models for kinemap: cut-and-project generators, analytic transforms,
 the substitution recursion, and higher-dimensional peak indexing.
 
-Generators (each a :class:`CutProjectScheme`; stream points with ``iter_points``, build a
-:class:`kinemap.Model` with ``model`` or ``points(...).to_model``):
+Generators (each a :class:`CutProjectScheme`; stream points with ``iter_points`` or
+``iter_positions``, gather them with ``positions``/``points``, build a :class:`kinemap.Model`
+with ``model`` or ``points(...).to_model``, or hand ``source(radius)`` to
+:func:`kinemap.scatter` to stream a patch that is never held whole):
 
 * :func:`fibonacci`, :func:`metallic_chain` — 1-D substitution chains (also by
   substitution: ``word``, ``substitution_points``; transform by recursion:
@@ -26,7 +28,8 @@ planar sets in the xy-plane.
 from .chains import ChainScheme, chain_transform, fibonacci, fibonacci_model, metallic_chain
 from .decorate import (coordination, count_tiles, neighbour_signature, phason_debye_waller, phason_jitter_points,
                        phonon_displacements, species_by_coordination, species_by_perp, tile_volumes)
-from .peaks import IndexingResult, InflationCheck, Peaks, find_peaks, index_peaks, inflation_check, plot_indexed
+from .peaks import (IndexingResult, InflationCheck, Peaks, find_peaks, index_peaks, inflation_check, kperp_bound,
+                    plot_indexed)
 from .scheme import CutProjectScheme, ModuleVectors, PointSet, StreamingPatch
 from .tilings import (SILVER, TAU, fibonacci_ratio, icosahedral, icosahedral_approximant, icosahedral_model,
                       octagonal, octagonal_model, pell_ratio, penrose, penrose_model)
@@ -41,5 +44,6 @@ __all__ = [
     "species_by_perp", "species_by_coordination", "coordination", "neighbour_signature", "count_tiles",
     "tile_volumes", "phonon_displacements", "phason_jitter_points", "phason_debye_waller",
     "Peaks", "find_peaks", "IndexingResult", "index_peaks", "InflationCheck", "inflation_check", "plot_indexed",
+    "kperp_bound",
     "Window", "IntervalWindow", "PolygonWindow", "PolyhedronWindow", "SlicedWindow", "exp_divided_differences",
 ]
