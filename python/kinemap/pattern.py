@@ -19,6 +19,7 @@ interrupted write never leaves a partial map under the requested name.
 
 from __future__ import annotations
 
+import contextlib
 import json
 import os
 import tempfile
@@ -138,64 +139,13 @@ def atomic_output(path) -> tuple[Path, Path]:
     return p, Path(tmp)
 
 
-def save_pattern(pattern: Pattern, path, *, keep_amplitude: bool = True, extra: dict | None = None) -> Path:
-    """Write `pattern` as NeXus NXdata (see the module notes); atomic: temp file then rename."""
-    import h5py
-
+@contextlib.contextmanager
+def atomic_write(path):
+    """Context manager giving a temporary path beside `path`; renamed to `path` when the block
+    finishes, deleted when it raises (so no partial file is ever left under either name)."""
     final, tmp = atomic_output(path)
     try:
-        with h5py.File(tmp, "w") as f:
-            f.attrs["NX_class"] = "NXroot"
-            f.attrs["default"] = "entry"
-            f.attrs["creator"] = "kinemap"
-            f.attrs["file_name"] = final.name
-            entry = f.create_group("entry")
-            entry.attrs["NX_class"] = "NXentry"
-            entry.attrs["default"] = "data"
-            prog = entry.create_dataset("program_name", data="kinemap")
-            prog.attrs["version"] = str(pattern.metadata.get("kinemap_version", ""))
-            entry.create_dataset("start_time", data=str(pattern.metadata.get("created", "")))
-            data = entry.create_group("data")
-            data.attrs["NX_class"] = "NXdata"
-            data.attrs["signal"] = "intensity"
-            g = pattern.grid
-            inten = data.create_dataset("intensity", data=pattern.intensity)
-            inten.attrs["units"] = f"{pattern.units}^2" if pattern.units != "1" else "1"
-            inten.attrs["long_name"] = f"intensity |A(q)|^2 ({pattern.units}^2)"
-            if keep_amplitude and pattern.amplitude is not None:
-                amp = data.create_dataset("amplitude", data=pattern.amplitude)
-                amp.attrs["units"] = pattern.units
-            if g.is_regular:
-                axes = list(g.axis_names)
-                for i, (name, values, unit) in enumerate(zip(g.axis_names, g.axis_values, g.axis_units)):
-                    ds = data.create_dataset(name, data=np.asarray(values, dtype=np.float64))
-                    ds.attrs["units"] = unit
-                    data.attrs[f"{name}_indices"] = i
-                data.attrs["axes"] = np.array(axes if axes else ["."], dtype=h5py.string_dtype())
-            else:
-                qds = data.create_dataset("q", data=g.q.reshape(tuple(g.shape) + (3,)))
-                qds.attrs["units"] = "1/angstrom"
-                data.attrs["axes"] = np.array(["."] * max(len(g.shape), 1), dtype=h5py.string_dtype())
-            gg = entry.create_group("grid")
-            gg.attrs["NX_class"] = "NXcollection"
-            gg.create_dataset("kind", data=g.kind)
-            gg.create_dataset("shape", data=np.asarray(g.shape, dtype=np.int64))
-            for name in ("origin", "steps", "cell", "hkl_origin", "hkl_steps"):
-                val = getattr(g, name)
-                if val is not None:
-                    d = gg.create_dataset(name, data=np.asarray(val, dtype=np.float64))
-                    d.attrs["units"] = {"cell": "angstrom", "hkl_origin": "r.l.u.", "hkl_steps": "r.l.u."}.get(name, "1/angstrom")
-            gg.create_dataset("axis_names", data=np.array(g.axis_names or [""], dtype=h5py.string_dtype()))
-            gg.create_dataset("axis_units", data=np.array(g.axis_units or [""], dtype=h5py.string_dtype()))
-            for i, v in enumerate(g.axis_values):
-                gg.create_dataset(f"axis_values_{i}", data=np.asarray(v, dtype=np.float64))
-            params = entry.create_group("parameters")
-            params.attrs["NX_class"] = "NXcollection"
-            meta = dict(pattern.metadata)
-            meta["units"] = pattern.units
-            if extra:
-                meta.update(extra)
-            _write_params(params, meta)
+        yield tmp
         os.replace(tmp, final)
     except BaseException:
         try:
@@ -203,6 +153,65 @@ def save_pattern(pattern: Pattern, path, *, keep_amplitude: bool = True, extra: 
         except OSError:
             pass
         raise
+
+
+def save_pattern(pattern: Pattern, path, *, keep_amplitude: bool = True, extra: dict | None = None) -> Path:
+    """Write `pattern` as NeXus NXdata (see the module notes); atomic: temp file then rename."""
+    import h5py
+
+    final = Path(path)
+    with atomic_write(final) as tmp, h5py.File(tmp, "w") as f:
+        f.attrs["NX_class"] = "NXroot"
+        f.attrs["default"] = "entry"
+        f.attrs["creator"] = "kinemap"
+        f.attrs["file_name"] = final.name
+        entry = f.create_group("entry")
+        entry.attrs["NX_class"] = "NXentry"
+        entry.attrs["default"] = "data"
+        prog = entry.create_dataset("program_name", data="kinemap")
+        prog.attrs["version"] = str(pattern.metadata.get("kinemap_version", ""))
+        entry.create_dataset("start_time", data=str(pattern.metadata.get("created", "")))
+        data = entry.create_group("data")
+        data.attrs["NX_class"] = "NXdata"
+        data.attrs["signal"] = "intensity"
+        g = pattern.grid
+        inten = data.create_dataset("intensity", data=pattern.intensity)
+        inten.attrs["units"] = f"{pattern.units}^2" if pattern.units != "1" else "1"
+        inten.attrs["long_name"] = f"intensity |A(q)|^2 ({pattern.units}^2)"
+        if keep_amplitude and pattern.amplitude is not None:
+            amp = data.create_dataset("amplitude", data=pattern.amplitude)
+            amp.attrs["units"] = pattern.units
+        if g.is_regular:
+            axes = list(g.axis_names)
+            for i, (name, values, unit) in enumerate(zip(g.axis_names, g.axis_values, g.axis_units)):
+                ds = data.create_dataset(name, data=np.asarray(values, dtype=np.float64))
+                ds.attrs["units"] = unit
+                data.attrs[f"{name}_indices"] = i
+            data.attrs["axes"] = np.array(axes if axes else ["."], dtype=h5py.string_dtype())
+        else:
+            qds = data.create_dataset("q", data=g.q.reshape(tuple(g.shape) + (3,)))
+            qds.attrs["units"] = "1/angstrom"
+            data.attrs["axes"] = np.array(["."] * max(len(g.shape), 1), dtype=h5py.string_dtype())
+        gg = entry.create_group("grid")
+        gg.attrs["NX_class"] = "NXcollection"
+        gg.create_dataset("kind", data=g.kind)
+        gg.create_dataset("shape", data=np.asarray(g.shape, dtype=np.int64))
+        for name in ("origin", "steps", "cell", "hkl_origin", "hkl_steps"):
+            val = getattr(g, name)
+            if val is not None:
+                d = gg.create_dataset(name, data=np.asarray(val, dtype=np.float64))
+                d.attrs["units"] = {"cell": "angstrom", "hkl_origin": "r.l.u.", "hkl_steps": "r.l.u."}.get(name, "1/angstrom")
+        gg.create_dataset("axis_names", data=np.array(g.axis_names or [""], dtype=h5py.string_dtype()))
+        gg.create_dataset("axis_units", data=np.array(g.axis_units or [""], dtype=h5py.string_dtype()))
+        for i, v in enumerate(g.axis_values):
+            gg.create_dataset(f"axis_values_{i}", data=np.asarray(v, dtype=np.float64))
+        params = entry.create_group("parameters")
+        params.attrs["NX_class"] = "NXcollection"
+        meta = dict(pattern.metadata)
+        meta["units"] = pattern.units
+        if extra:
+            meta.update(extra)
+        _write_params(params, meta)
     return final
 
 
@@ -252,4 +261,4 @@ def load_pattern(path) -> Pattern:
     return Pattern(grid=grid, amplitude=amplitude, intensity=intensity, metadata=meta, units=units_amp)
 
 
-__all__ = ["Pattern", "save_pattern", "load_pattern", "atomic_output"]
+__all__ = ["Pattern", "save_pattern", "load_pattern", "atomic_output", "atomic_write"]

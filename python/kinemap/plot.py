@@ -11,13 +11,12 @@ Files are written under a temporary name and renamed when complete.
 
 from __future__ import annotations
 
-import os
 from pathlib import Path
 
 import numpy as np
 
 from .errors import InvalidInputError
-from .pattern import Pattern, atomic_output
+from .pattern import Pattern, atomic_output, atomic_write
 
 SCALES = ("log", "linear")
 AXIS_UNITS = ("auto", "rlu", "inv-angstrom")
@@ -43,17 +42,9 @@ def new_figure(width: float, height: float, dpi: int = 100):
 
 def save_figure(fig, path, dpi: int | None = None) -> Path:
     """Write `fig` as PNG under a temporary name, renamed when complete."""
-    final, tmp = atomic_output(path)
-    try:
+    with atomic_write(path) as tmp:
         fig.savefig(tmp, format="png", dpi=dpi if dpi is not None else fig.dpi)
-        os.replace(tmp, final)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        raise
-    return final
+    return Path(path)
 
 
 def _values(pattern: Pattern, quantity: str) -> tuple[np.ndarray, str]:
