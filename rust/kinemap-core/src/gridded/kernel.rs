@@ -11,6 +11,7 @@
 //! all `w` values at once and vectorises across the pieces.
 
 use crate::error::{Error, Result};
+use crate::sincos::{mul_add, sincos_lanes, LANES};
 
 /// Widest kernel supported (grid spacings); it bounds the fixed-size arrays of the spreader.
 pub const MAX_WIDTH: usize = 16;
@@ -30,6 +31,9 @@ pub struct Kernel {
     coef: Vec<[f64; MAX_WIDTH]>,
     /// Gauss–Legendre nodes and weights on [0, 1] for the kernel's Fourier transform.
     quad: Vec<(f64, f64)>,
+    /// The same nodes prepared for [`Kernel::fourier_many`]: `z·w/2` and `weight·φ(z)·w`,
+    /// in vectors of [`LANES`] (padded with zero weights).
+    nodes: Vec<([f64; LANES], [f64; LANES])>,
 }
 
 /// The rules above give relative l2 errors of up to about 4·tol in practice (measured against
@@ -86,7 +90,17 @@ impl Kernel {
             upsample,
             coef: Vec::new(),
             quad: gauss_legendre(3 * w + 30),
+            nodes: Vec::new(),
         };
+        let half = 0.5 * w as f64;
+        for chunk in k.quad.chunks(LANES) {
+            let (mut zh, mut a) = ([0.0; LANES], [0.0; LANES]);
+            for (l, &(z, wq)) in chunk.iter().enumerate() {
+                zh[l] = z * half;
+                a[l] = wq * k.phi(z) * w as f64;
+            }
+            k.nodes.push((zh, a));
+        }
         k.fit(tol);
         Ok(k)
     }
@@ -181,18 +195,20 @@ impl Kernel {
     /// [`Kernel::fourier`] at many frequencies, with the vectorised sincos (used per target
     /// point by the arbitrary-point path).
     pub fn fourier_many(&self, theta: &[f64], out: &mut [f64]) {
-        let half = 0.5 * self.w as f64;
-        let nodes: Vec<(f64, f64)> = self
-            .quad
-            .iter()
-            .map(|&(z, wq)| (z * half, wq * self.phi(z) * self.w as f64))
-            .collect();
+        let (mut ph, mut sn, mut cs) = ([0.0; LANES], [0.0; LANES], [0.0; LANES]);
         for (o, &th) in out.iter_mut().zip(theta) {
-            let mut sum = 0.0;
-            for &(zh, a) in &nodes {
-                sum = crate::sincos::mul_add(a, crate::sincos::sincos(th * zh).1, sum);
+            // Lane-wise partial sums, so the loop vectorises (a single running sum would not).
+            let mut acc = [0.0; LANES];
+            for (zh, a) in &self.nodes {
+                for l in 0..LANES {
+                    ph[l] = th * zh[l];
+                }
+                sincos_lanes(&ph, &mut sn, &mut cs);
+                for l in 0..LANES {
+                    acc[l] = mul_add(a[l], cs[l], acc[l]);
+                }
             }
-            *o = sum;
+            *o = acc.iter().sum();
         }
     }
 }
