@@ -56,14 +56,16 @@ MAX_WIDTH = 16
 MIN_TOL = 1e-12
 
 # Cost model (seconds per unit on one core of the reference machine, Zen 5 with AVX-512,
-# measured with the benchmarks in benchmarks/bench_gridded.py). Only ratios matter for the
-# choice of method; absolute values are rough.
+# fitted to timings of benchmarks/bench_gridded.py: 10⁵–10⁶ atoms into 64³–128³ at 1e-6 and
+# 1e-12, σ = 1.25 … 2.25, within ~20 %). Spreading is cheap per kernel point but the fine grid
+# costs per point (first touch, cache misses, FFT), which favours small σ on large grids.
 _T_EXACT_GRID = 1.0 / 4.0e9    # per atom–q pair, phase stepping on regular grids
 _T_EXACT_POINT = 1.0 / 6.0e8   # per atom–q pair, one sincos per pair
-_T_SPREAD = 1.0 / 2.2e9        # per kernel point written (atoms × wᵈ)
-_T_ATOM = 80e-9                # per atom: projection, phase, sort
-_T_FFT = 1.0 / 1.0e10          # per nominal flop, 5·V·log2(V) (pruned share applied separately)
-_T_POINT = 40e-9               # per output point: deconvolution, factor table, combination
+_T_SPREAD = 0.27e-9            # per kernel point written or read (atoms × wᵈ)
+_T_ATOM = 50e-9                # per atom: projection, phase, sort
+_T_GRID = 18.5e-9              # per fine-grid point: allocation, first touch, FFT
+_T_POINT = 15e-9               # per output point: deconvolution, factor table, combination
+_T_TARGET = 100e-9             # per arbitrary q-point: kernel transform, sorting (type 3)
 #: Atomic number density (Å⁻³) assumed to estimate a model's extent when only its atom count
 #: is known (arbitrary q-points; typical of condensed matter).
 ASSUMED_DENSITY = 0.1
@@ -91,11 +93,6 @@ def _width(tol: float, sigma: float, stages: int = 1) -> int:
     return int(_core.gridded_kernel_width(float(tol) / stages, float(sigma)))
 
 
-def _fft_cost(dims) -> float:
-    v = float(np.prod(dims))
-    return 5.0 * v * math.log2(max(v, 2.0)) * _T_FFT
-
-
 def _regular_axes(grid: QGrid) -> list[int]:
     return [n for n in grid.shape if n > 1]
 
@@ -111,9 +108,8 @@ def regular_estimate(n_atoms: int, grid: QGrid, tol: float, sigma: float):
     axes = _regular_axes(grid)
     dims = [_smooth(max(math.ceil(sigma * n), 2 * w)) for n in axes]
     d = len(axes)
-    # The pruned FFT does about (1 + 1/σ + 1/σ²)/3 of the full transform's work in 3-D.
-    share = {0: 1.0, 1: 1.0, 2: (1 + 1 / sigma) / 2, 3: (1 + 1 / sigma + 1 / sigma**2) / 3}[d]
-    t = n_atoms * (w**d * _T_SPREAD + _T_ATOM) + share * _fft_cost(dims) + grid.size * _T_POINT
+    v = float(np.prod(dims)) if dims else 1.0
+    t = n_atoms * (w**d * _T_SPREAD + _T_ATOM) + v * _T_GRID + grid.size * _T_POINT
     return t, 16 * int(np.prod(dims, dtype=np.int64))
 
 
@@ -138,10 +134,11 @@ def point_estimate(n_atoms: int, n_points: int, extent, qrange, tol: float, sigm
         return None
     d1, d2 = _point_dims(sigma, w, extent, qrange)
     d = len(d1)
+    v1 = float(np.prod(d1)) if d1 else 1.0
     v2 = float(np.prod(d2)) if d2 else 1.0
-    t = (n_atoms * (w**d * _T_SPREAD + _T_ATOM) + n_points * (w**d * _T_SPREAD + _T_POINT * 4)
-         + _fft_cost(d2) * (0.7 if d == 3 else 1.0))
-    return t, 16 * int(np.prod(d1)) if d1 else 16, 16 * v2
+    t = (n_atoms * (w**d * _T_SPREAD + _T_ATOM) + n_points * (w**d * _T_SPREAD + _T_TARGET)
+         + (v1 + v2) * _T_GRID)
+    return t, 16 * v1, 16 * v2
 
 
 def choose(n_atoms: int | None, grid: QGrid, tol: float) -> str:
@@ -165,9 +162,10 @@ def choose(n_atoms: int | None, grid: QGrid, tol: float) -> str:
     -----
     The exact sum costs N·M pairs at about 4·10⁹ pairs/s per core on regular grids (phase
     stepping) and 6·10⁸ on arbitrary points (one sincos per pair). The gridded path costs about
-    N·(wᵈ/2.2·10⁹ + 80 ns) for spreading, 5·V·log₂V/10¹⁰ for the (pruned) FFT of the fine grid
-    of V points (σᵈ·M for regular grids, σ from ``UPSAMPLE_CHOICES``, the cheapest estimate
-    wins), plus 40 ns per q-point; w grows with log(1/tol). For
+    N·(0.27 ns·wᵈ + 50 ns) for spreading, 18.5 ns per point of the fine grid of V points
+    (first touch, FFT; V ≈ σᵈ·M for regular grids, σ from ``UPSAMPLE_CHOICES``, the cheapest
+    estimate wins) and 15 ns per q-point; w grows with log(1/tol). Arbitrary q-points add
+    0.27 ns·wᵈ + 100 ns per point for interpolation. For
     arbitrary q-points the fine grid follows the product of the model's extent and the q-range
     per axis; the extent is estimated from the atom count assuming a compact model of density
     0.1 atoms/Å³. A gridded plan that would not fit in memory, or a tolerance below
