@@ -164,9 +164,8 @@ impl Kernel {
         self.coef.len() - 1
     }
 
-    /// Kernel values at the `w` grid points an atom touches: `out[i] = φ(−1 + 2(i + s)/w)` with
-    /// `t = 2s − 1 ∈ [−1, 1]`, where `s ∈ [0, 1)` is the distance from the atom's grid
-    /// coordinate `g` up to its first grid point `⌈g − w/2⌉`, plus `w/2` minus... see
+    /// Kernel values at the `w` grid points an atom touches: `out[i] = φ(−1 + 2(i + s)/w)`
+    /// for `t = 2s − 1 ∈ [−1, 1]`, where `s ∈ [0, 1)` is the offset returned by
     /// [`first_point`]. Lanes `i ≥ w` are zero.
     #[inline(always)]
     pub fn eval(&self, t: f64, out: &mut [f64; MAX_WIDTH]) {

@@ -242,7 +242,7 @@ impl RegularPlan {
                 [&full[0], &full[1], &full[2]],
                 [&win[0], &win[1], &win[2]],
             );
-            let mut out = vec![Complex64::new(0.0, 0.0); m];
+            let mut out = zeroed_grid(m);
             out.par_chunks_mut(od[2]).enumerate().for_each(|(r, row)| {
                 let (i0, i1) = (r / od[1], r % od[1]);
                 let f01 = dc[0][i0] * dc[1][i1];
@@ -519,7 +519,7 @@ impl PointPlan {
                     (p, Complex64::new(cs * d, sn * d))
                 })
                 .unzip();
-            let mut out = vec![Complex64::new(0.0, 0.0); m];
+            let mut out = zeroed_grid(m);
             interp(&grid2, lay2, ker, &p2, &mut out);
             out.par_iter_mut()
                 .zip(post.par_iter())
