@@ -180,6 +180,8 @@ def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("--quick", action="store_true", help="10^5 and 10^6 atoms, 64^3 and 128^3 only")
     ap.add_argument("--big", action="store_true", help="include 10^7 atoms")
+    ap.add_argument("--atoms", default=None, help="comma list of atom counts (overrides --quick/--big)")
+    ap.add_argument("--no-grids", action="store_true", help="skip the regular grids")
     ap.add_argument("--points", action="store_true", help="type 3: 10^6 atoms -> 10^6 arbitrary points")
     ap.add_argument("--tols", default="1e-6,1e-12")
     ap.add_argument("--threads", default="1,2")
@@ -192,10 +194,14 @@ def main(argv=None):
     tols = [float(t) for t in a.tols.split(",")]
     threads = [int(t) for t in a.threads.split(",")]
     ns = [10**5, 10**6] + ([10**7] if a.big else [])
+    if a.atoms:
+        ns = [int(float(x)) for x in a.atoms.split(",")]
     ms = [64, 128] if a.quick else [64, 128, 256]
     cases = [(f"volume {m}^3", n, regular_grid("volume", m)) for n in ns for m in ms]
     if not a.quick:
         cases += [("plane 512x512", n, regular_grid("plane", 512)) for n in ns]
+    if a.no_grids:
+        cases = []
     if a.points:
         rng = np.random.default_rng(3)
         q = rng.uniform(-1.0, 1.0, (10**6, 3))

@@ -189,3 +189,29 @@ def test_fine_grids_that_do_not_fit_are_refused(xray_model, monkeypatch):
     grid = km.QGrid.volume([0, 0, 0], [3, 0, 0], [0, 3, 0], [0, 0, 3], (160, 160, 160))
     with pytest.raises(InvalidInputError, match="would need about"):
         gridded.gridded_amplitudes(xray_model, grid, km.get_probe("xray"), tol=1e-6)
+
+
+@pytest.mark.parametrize("q", [
+    [[0.3, -0.2, 0.9]],                                      # one point: every axis drops out
+    [[t, 0.5, -0.4] for t in np.linspace(-2, 2, 57)],        # points on a line along x
+    [[0.2 * t, -0.1 * t, 0.7] for t in np.linspace(-9, 9, 41)],  # a tilted line in a plane
+])
+def test_degenerate_point_sets(unit_model, q):
+    model, pos, occ, b = unit_model
+    q = np.asarray(q, dtype=float)
+    want = numpy_amplitude(pos, occ, b, q)
+    got = km.scatter(model, km.QGrid.points(q), probe="unit", method="gridded", tol=1e-9).amplitude
+    assert rel_l2(got, want) <= 1e-9
+
+
+def test_atoms_in_a_plane_and_on_one_site():
+    # Atoms with one coordinate shared (a monolayer), and all atoms on one site: axes of zero
+    # extent drop out of the arbitrary-point transform. Reference: numpy's direct sum.
+    rng = np.random.default_rng(9)
+    q = rng.uniform(-1.5, 1.5, (300, 3))
+    for pos in (np.c_[rng.uniform(0, 30, (400, 2)), np.full(400, 2.5)], np.tile([1.0, 2.0, 3.0], (50, 1))):
+        occ = np.ones(len(pos))
+        want = numpy_amplitude(pos, occ, np.zeros(len(pos)), q)
+        got = km.scatter(km.Model(pos, "X"), km.QGrid.points(q), probe="unit", method="gridded",
+                         tol=1e-9).amplitude
+        assert rel_l2(got, want) <= 1e-9
