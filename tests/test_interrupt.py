@@ -15,7 +15,7 @@ model = km.Model(rng.uniform(0, 100, (400_000, 3)), "Fe")
 grid = km.QGrid.points(rng.uniform(-3, 3, (200_000, 3)))   # ~8e10 pairs: minutes of work
 print("started", flush=True)
 try:
-    km.scatter(model, grid, threads=1)
+    km.scatter(model, grid, method="exact", threads=1)
 except KeyboardInterrupt:
     print("interrupted", flush=True)
     sys.exit(3)
