@@ -51,18 +51,64 @@ fn check_atoms(positions: &[[f64; 3]], weights: &[f64], slots: &[u32]) -> Result
     Ok(())
 }
 
-/// Indices of the atoms of every slot (stable), as `(slot, indices)` for non-empty slots.
-fn by_slot(slots: &[u32]) -> Vec<(usize, Vec<usize>)> {
+/// Atoms per internal batch of `add`: bounds the temporaries (about 100 bytes per atom) and
+/// lets the allocator recycle them, whatever the size of the caller's chunk.
+const BATCH: usize = 1 << 20;
+
+/// Indices (relative to the batch) of the atoms of every non-empty slot, in input order;
+/// `None` for the indices when every atom is in the same slot.
+fn by_slot(slots: &[u32]) -> Vec<(usize, Option<Vec<u32>>)> {
+    let Some(&first) = slots.first() else {
+        return Vec::new();
+    };
+    if slots.iter().all(|&s| s == first) {
+        return vec![(first as usize, None)];
+    }
     let n_slots = slots.iter().map(|&s| s as usize + 1).max().unwrap_or(0);
-    let mut lists: Vec<Vec<usize>> = vec![Vec::new(); n_slots];
+    let mut lists: Vec<Vec<u32>> = vec![Vec::new(); n_slots];
     for (j, &s) in slots.iter().enumerate() {
-        lists[s as usize].push(j);
+        lists[s as usize].push(j as u32);
     }
     lists
         .into_iter()
         .enumerate()
         .filter(|(_, l)| !l.is_empty())
+        .map(|(s, l)| (s, Some(l)))
         .collect()
+}
+
+/// Spread atoms batch by batch into the slots' grids; `prep(j)` gives atom `j`'s grid
+/// coordinates and complex weight.
+fn add_batches(
+    store: &mut Vec<Option<Vec<Complex64>>>,
+    lay: &Layout,
+    ker: &Kernel,
+    slots: &[u32],
+    prep: impl Fn(usize) -> ([f64; 3], Complex64) + Sync,
+) {
+    let n = slots.len();
+    let mut start = 0;
+    while start < n {
+        let end = (start + BATCH).min(n);
+        for (s, idx) in by_slot(&slots[start..end]) {
+            grow(store, s);
+            let grid = store[s].get_or_insert_with(|| zeroed_grid(lay.len()));
+            let (g, c): (Vec<[f64; 3]>, Vec<Complex64>) = match idx {
+                None => (start..end)
+                    .into_par_iter()
+                    .with_min_len(4096)
+                    .map(&prep)
+                    .unzip(),
+                Some(idx) => idx
+                    .par_iter()
+                    .with_min_len(4096)
+                    .map(|&i| prep(start + i as usize))
+                    .unzip(),
+            };
+            spread(grid, lay, ker, &g, &c);
+        }
+        start = end;
+    }
 }
 
 fn grow(slots: &mut Vec<Option<Vec<Complex64>>>, s: usize) {
@@ -191,35 +237,23 @@ impl RegularPlan {
         threads: Option<usize>,
     ) -> Result<()> {
         check_atoms(positions, weights, slots)?;
-        let groups = by_slot(slots);
         let (lay, ker, steps, centre) = (&self.layout, &self.kernel, self.steps, self.centre);
         let scale: [f64; 3] = lay.dims.map(|n| n as f64 / (2.0 * PI));
         let store = &mut self.slots;
         crate::pool::run(threads, || {
-            for (s, idx) in groups {
-                grow(store, s);
-                let grid = store[s].get_or_insert_with(|| zeroed_grid(lay.len()));
-                let (g, c): (Vec<[f64; 3]>, Vec<Complex64>) = idx
-                    .par_iter()
-                    .with_min_len(4096)
-                    .map(|&j| {
-                        let r = positions[j];
-                        let mut gp = [0.0; 3];
-                        for l in 0..3 {
-                            if lay.dims[l] > 1 {
-                                let st = steps[l];
-                                gp[l] = mul_add(st[2], r[2], mul_add(st[1], r[1], st[0] * r[0]))
-                                    * scale[l];
-                            }
-                        }
-                        let ph =
-                            mul_add(centre[2], r[2], mul_add(centre[1], r[1], centre[0] * r[0]));
-                        let (sn, cs) = sincos(ph);
-                        (gp, Complex64::new(weights[j] * cs, weights[j] * sn))
-                    })
-                    .unzip();
-                spread(grid, lay, ker, &g, &c);
-            }
+            add_batches(store, lay, ker, slots, |j| {
+                let r = positions[j];
+                let mut gp = [0.0; 3];
+                for l in 0..3 {
+                    if lay.dims[l] > 1 {
+                        let st = steps[l];
+                        gp[l] = mul_add(st[2], r[2], mul_add(st[1], r[1], st[0] * r[0])) * scale[l];
+                    }
+                }
+                let ph = mul_add(centre[2], r[2], mul_add(centre[1], r[1], centre[0] * r[0]));
+                let (sn, cs) = sincos(ph);
+                (gp, Complex64::new(weights[j] * cs, weights[j] * sn))
+            })
         })
     }
 
@@ -403,33 +437,23 @@ impl PointPlan {
                 }
             }
         }
-        let groups = by_slot(slots);
         let (lay, ker) = (&self.lay1, &self.kernel);
         let (axis, cr, cq, tg) = (self.axis, self.centre_r, self.centre_q, self.to_grid);
         let store = &mut self.slots;
         crate::pool::run(threads, || {
-            for (s, idx) in groups {
-                grow(store, s);
-                let grid = store[s].get_or_insert_with(|| zeroed_grid(lay.len()));
-                let (g, c): (Vec<[f64; 3]>, Vec<Complex64>) = idx
-                    .par_iter()
-                    .with_min_len(4096)
-                    .map(|&j| {
-                        let r = positions[j];
-                        let xr = [r[0] - cr[0], r[1] - cr[1], r[2] - cr[2]];
-                        let mut gp = [0.0; 3];
-                        for l in 0..3 {
-                            if let Some(a) = axis[l] {
-                                gp[l] = xr[a] * tg[l];
-                            }
-                        }
-                        let ph = mul_add(cq[2], xr[2], mul_add(cq[1], xr[1], cq[0] * xr[0]));
-                        let (sn, cs) = sincos(ph);
-                        (gp, Complex64::new(weights[j] * cs, weights[j] * sn))
-                    })
-                    .unzip();
-                spread(grid, lay, ker, &g, &c);
-            }
+            add_batches(store, lay, ker, slots, |j| {
+                let r = positions[j];
+                let xr = [r[0] - cr[0], r[1] - cr[1], r[2] - cr[2]];
+                let mut gp = [0.0; 3];
+                for l in 0..3 {
+                    if let Some(a) = axis[l] {
+                        gp[l] = xr[a] * tg[l];
+                    }
+                }
+                let ph = mul_add(cq[2], xr[2], mul_add(cq[1], xr[1], cq[0] * xr[0]));
+                let (sn, cs) = sincos(ph);
+                (gp, Complex64::new(weights[j] * cs, weights[j] * sn))
+            })
         })
     }
 

@@ -232,6 +232,17 @@ unsafe fn spread_points<const W: usize>(
     }
 }
 
+/// Points per block of the parallel counting sort.
+const SORT_BLOCK: usize = 1 << 16;
+
+/// Raw pointer to the sort's output arrays (disjoint writes, see `sort_points`).
+#[derive(Clone, Copy)]
+struct SortPtr(*mut f64);
+// SAFETY: only used in `sort_points`, where every destination is written by exactly one task.
+unsafe impl Send for SortPtr {}
+// SAFETY: as above.
+unsafe impl Sync for SortPtr {}
+
 /// Sort points by tile and bin (stable counting sort); returns the sorted coordinates and
 /// weights and the start of every tile's run (tiles in row-major `(s0, s1)` order).
 fn sort_points(
@@ -271,23 +282,60 @@ fn sort_points(
         })
         .collect();
     let n_bins = n_tiles * per_tile;
-    let mut start = vec![0usize; n_bins + 1];
-    for &k in &keys {
-        start[k as usize + 1] += 1;
-    }
+    // Stable counting sort, parallel over a fixed number of point blocks (not the thread
+    // count): per-block histograms, offsets in (bin, block) order, then each block scatters
+    // its points to its own destinations.
+    let n = g.len();
+    let n_blocks = n.div_ceil(SORT_BLOCK).max(1);
+    let hist: Vec<Vec<u32>> = keys
+        .par_chunks(SORT_BLOCK)
+        .map(|ks| {
+            let mut h = vec![0u32; n_bins];
+            for &k in ks {
+                h[k as usize] += 1;
+            }
+            h
+        })
+        .collect();
+    let mut offsets = vec![vec![0usize; n_bins]; n_blocks];
+    let mut tile_start = vec![0usize; n_tiles + 1];
+    let mut acc = 0usize;
     for b in 0..n_bins {
-        start[b + 1] += start[b];
+        if b % per_tile == 0 {
+            tile_start[b / per_tile] = acc;
+        }
+        for (blk, h) in hist.iter().enumerate() {
+            offsets[blk][b] = acc;
+            acc += h[b] as usize;
+        }
     }
-    let tile_start: Vec<usize> = (0..=n_tiles).map(|t| start[t * per_tile]).collect();
-    let mut next = start;
-    let mut gs = vec![[0.0; 3]; g.len()];
-    let mut cs = vec![Complex64::new(0.0, 0.0); g.len()];
-    for ((&k, p), cj) in keys.iter().zip(g).zip(c) {
-        let d = &mut next[k as usize];
-        gs[*d] = *p;
-        cs[*d] = *cj;
-        *d += 1;
-    }
+    tile_start[n_tiles] = acc;
+    let mut gs = vec![[0.0; 3]; n];
+    let mut cs = vec![Complex64::new(0.0, 0.0); n];
+    let (gp, cp) = (
+        SortPtr(gs.as_mut_ptr() as *mut f64),
+        SortPtr(cs.as_mut_ptr() as *mut f64),
+    );
+    offsets
+        .into_par_iter()
+        .zip(
+            keys.par_chunks(SORT_BLOCK)
+                .zip(g.par_chunks(SORT_BLOCK).zip(c.par_chunks(SORT_BLOCK))),
+        )
+        .for_each(|(mut next, (ks, (gb, cb)))| {
+            let (gp, cp) = (gp, cp);
+            for ((&k, p), cj) in ks.iter().zip(gb).zip(cb) {
+                let d = next[k as usize];
+                next[k as usize] += 1;
+                debug_assert!(d < n);
+                // SAFETY: every destination index d < n is produced exactly once over all
+                // blocks (disjoint offset ranges per (bin, block)), so no two writes alias.
+                unsafe {
+                    *(gp.0.add(3 * d) as *mut [f64; 3]) = *p;
+                    *(cp.0.add(2 * d) as *mut Complex64) = *cj;
+                }
+            }
+        });
     (gs, cs, tile_start)
 }
 
