@@ -26,8 +26,20 @@ fn layout_slots(n_real: usize) -> [Option<usize>; 3] {
     }
 }
 
+/// Most slots (scattering groups) a plan keeps; each holds a whole fine grid.
+pub const MAX_SLOTS: usize = 1 << 16;
+
 fn check_atoms(positions: &[[f64; 3]], weights: &[f64], slots: &[u32]) -> Result<()> {
     let n = positions.len();
+    if let Some((j, s)) = slots
+        .iter()
+        .enumerate()
+        .find(|(_, &s)| s as usize >= MAX_SLOTS)
+    {
+        return Err(Error::Range(format!(
+            "slot of atom {j} is {s}, but a plan keeps at most {MAX_SLOTS} slots"
+        )));
+    }
     if weights.len() != n || slots.len() != n {
         return Err(Error::Shape(format!(
             "weights and slots must have one value per atom ({n}), got {} and {}",
@@ -330,8 +342,12 @@ impl PointPlan {
     ) -> Result<Self> {
         crate::point::check_vectors(q, "q-point")?;
         crate::point::check_vectors(&[lo, hi], "atom bound")?;
-        if q.is_empty() {
-            return Err(Error::Range("no q-points".into()));
+        if q.is_empty() || q.len() > u32::MAX as usize {
+            return Err(Error::Range(format!(
+                "the arbitrary-point plan takes 1 to {} q-points, got {}",
+                u32::MAX,
+                q.len()
+            )));
         }
         if (0..3).any(|a| lo[a] > hi[a]) {
             return Err(Error::Range(format!(
