@@ -66,6 +66,7 @@ _T_ATOM = 50e-9                # per atom: projection, phase, sort
 _T_GRID = 18.5e-9              # per fine-grid point: allocation, first touch, FFT
 _T_POINT = 15e-9               # per output point: deconvolution, factor table, combination
 _T_TARGET = 100e-9             # per arbitrary q-point: kernel transform, sorting (type 3)
+_BIG_GRID = 64e6               # fine-grid points beyond which spreading slows down (see _big_grid)
 #: Atomic number density (Å⁻³) assumed to estimate a model's extent when only its atom count
 #: is known (arbitrary q-points; typical of condensed matter).
 ASSUMED_DENSITY = 0.1
@@ -74,14 +75,14 @@ _BLOCK_Q = 1 << 20  # q-points per block when combining group sums with form fac
 
 
 def _smooth(n: int) -> int:
-    """Even 2,3,5-smooth size ≥ n (the core also skips multiples of 128; close enough here)."""
+    """Even 2,3,5-smooth size ≥ n, skipping multiples of 64 above 128 (as the core does)."""
     m = max(2, int(n) + (int(n) & 1))
     while True:
         r = m
         for p in (2, 3, 5):
             while r % p == 0:
                 r //= p
-        if r == 1 and (m <= 128 or m % 128):
+        if r == 1 and (m <= 128 or m % 64):
             return m
         m += 2
 
@@ -97,6 +98,12 @@ def _regular_axes(grid: QGrid) -> list[int]:
     return [n for n in grid.shape if n > 1]
 
 
+def _big_grid(v: float) -> float:
+    """Slow-down of spreading on fine grids far beyond the caches and the TLB's reach
+    (measured: 10⁷ atoms onto 576³ took 1.4× as long as onto 540³ with fewer kernel points)."""
+    return 1.0 + max(0.0, v - _BIG_GRID) / _BIG_GRID
+
+
 def regular_estimate(n_atoms: int, grid: QGrid, tol: float, sigma: float):
     """Estimated (seconds, bytes per group grid) of the gridded path on a regular grid, or
     None when the kernel for `tol` at `sigma` is too wide."""
@@ -109,7 +116,7 @@ def regular_estimate(n_atoms: int, grid: QGrid, tol: float, sigma: float):
     dims = [_smooth(max(math.ceil(sigma * n), 2 * w)) for n in axes]
     d = len(axes)
     v = float(np.prod(dims)) if dims else 1.0
-    t = n_atoms * (w**d * _T_SPREAD + _T_ATOM) + v * _T_GRID + grid.size * _T_POINT
+    t = n_atoms * (w**d * _T_SPREAD * _big_grid(v) + _T_ATOM) + v * _T_GRID + grid.size * _T_POINT
     return t, 16 * int(np.prod(dims, dtype=np.int64))
 
 
@@ -136,8 +143,8 @@ def point_estimate(n_atoms: int, n_points: int, extent, qrange, tol: float, sigm
     d = len(d1)
     v1 = float(np.prod(d1)) if d1 else 1.0
     v2 = float(np.prod(d2)) if d2 else 1.0
-    t = (n_atoms * (w**d * _T_SPREAD + _T_ATOM) + n_points * (w**d * _T_SPREAD + _T_TARGET)
-         + (v1 + v2) * _T_GRID)
+    t = (n_atoms * (w**d * _T_SPREAD * _big_grid(v1) + _T_ATOM)
+         + n_points * (w**d * _T_SPREAD * _big_grid(v2) + _T_TARGET) + (v1 + v2) * _T_GRID)
     return t, 16 * v1, 16 * v2
 
 
