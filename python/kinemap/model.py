@@ -77,6 +77,24 @@ def _per_atom(value, species: np.ndarray, n: int, name: str, default: float) -> 
     return np.ascontiguousarray(a)
 
 
+def _factorize_labels(species: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Sorted distinct labels and each atom's index into them.
+
+    Models have few distinct labels, so one vectorised comparison per label beats sorting a
+    million Python strings.
+    """
+    if len(species) == 0:
+        return np.array([], dtype=str), np.zeros(0, dtype=np.int64)
+    distinct = sorted(set(species.tolist()))
+    if len(distinct) > 64:
+        labels, codes = np.unique(species.astype(str), return_inverse=True)
+        return labels, codes.reshape(-1)
+    codes = np.zeros(len(species), dtype=np.int64)
+    for i, lab in enumerate(distinct[1:], start=1):
+        codes[species == lab] = i
+    return np.array(distinct, dtype=str), codes
+
+
 def _check_range(values: np.ndarray, name: str, lo: float, hi: float | None) -> None:
     bad = ~np.isfinite(values) | (values < lo)
     if hi is not None:
@@ -227,13 +245,20 @@ class Model:
             When there are more than ``MAX_GROUPS`` distinct combinations (for example a
             different B for every atom): round the displacement parameters.
         """
-        labels, sp_index = np.unique(self.species.astype(str), return_inverse=True)
+        if self.n_atoms == 0:
+            return Groups(index=np.zeros(0, np.uint32), labels=[], b_iso=np.zeros(0), u_aniso=None)
+        labels, sp_index = _factorize_labels(self.species)
         if self.u_aniso is None:
-            key = np.column_stack([sp_index.astype(np.float64), self.b_iso])
+            # Integer keys (species code × distinct-B index): sorting integers is much faster
+            # than a row-wise unique of a float table, and a model with one B is one pass.
+            b_values, b_index = np.unique(self.b_iso, return_inverse=True)
+            key = sp_index.astype(np.int64) * len(b_values) + b_index.reshape(-1)
+            ukey, index = np.unique(key, return_inverse=True)
+            uniq = np.column_stack([(ukey // len(b_values)).astype(np.float64), b_values[ukey % len(b_values)]])
         else:
             iu = np.triu_indices(3)
             key = np.column_stack([sp_index.astype(np.float64), self.u_aniso[:, iu[0], iu[1]]])
-        uniq, index = np.unique(key, axis=0, return_inverse=True)
+            uniq, index = np.unique(key, axis=0, return_inverse=True)
         if len(uniq) > MAX_GROUPS:
             raise InvalidInputError(
                 f"the model has {len(uniq)} distinct (species, displacement) combinations, more "
