@@ -36,3 +36,59 @@ def grid_amplitudes(
     *,
     threads: int | None = None,
 ) -> npt.NDArray[np.complex128]: ...
+
+class RegularPlan:
+    """Gridded (spreading + FFT) plan for a regular grid; one fine grid per slot (group)."""
+
+    def __init__(
+        self,
+        origin: npt.NDArray[np.float64],
+        steps: npt.NDArray[np.float64],
+        shape: list[int],
+        tol: float,
+        upsample: float,
+    ) -> None: ...
+    @property
+    def fine_len(self) -> int: ...
+    @property
+    def fine_dims(self) -> tuple[int, int, int]: ...
+    @property
+    def width(self) -> int: ...
+    def add(
+        self,
+        positions: npt.NDArray[np.float64],
+        weights: npt.NDArray[np.float64],
+        slots: npt.NDArray[np.uint32],
+        *,
+        threads: int | None = None,
+    ) -> None: ...
+    def finish(self, slot: int, *, threads: int | None = None) -> npt.NDArray[np.complex128]: ...
+
+class PointPlan:
+    """Gridded type-3 plan for arbitrary q-points inside the box [lo, hi] of positions."""
+
+    def __init__(
+        self,
+        q: npt.NDArray[np.float64],
+        lo: npt.NDArray[np.float64],
+        hi: npt.NDArray[np.float64],
+        tol: float,
+        upsample: float,
+    ) -> None: ...
+    @property
+    def fine_lens(self) -> tuple[int, int]: ...
+    @property
+    def fine_dims(self) -> tuple[tuple[int, int, int], tuple[int, int, int]]: ...
+    @property
+    def width(self) -> int: ...
+    def add(
+        self,
+        positions: npt.NDArray[np.float64],
+        weights: npt.NDArray[np.float64],
+        slots: npt.NDArray[np.uint32],
+        *,
+        threads: int | None = None,
+    ) -> None: ...
+    def finish(self, slot: int, *, threads: int | None = None) -> npt.NDArray[np.complex128]: ...
+
+def gridded_kernel_width(tol: float, upsample: float) -> int: ...

@@ -203,9 +203,12 @@ def scatter(model, grid, probe="xray", method: str = "auto", tol: float = 1e-6,
         or a probe object; extra keyword arguments go to the probe (e.g. ``voltage_kv=200``).
     method : {"auto", "exact", "gridded"}
         "exact" is the direct sum (exact to rounding); "gridded" spreads atoms onto a fine
-        grid and uses FFTs, to relative tolerance `tol`; "auto" chooses by estimated cost.
+        grid and uses FFTs, to relative tolerance `tol`; "auto" picks the cheaper of the two
+        by the cost model documented in :func:`kinemap.gridded.choose` (and "exact" whenever
+        `tol` is below 1e-12 or a gridded plan would not fit in memory).
     tol : float
-        Requested relative accuracy of the gridded path (ignored by the exact sum).
+        Requested relative l2 accuracy of the gridded path, 1e-3 … 1e-12 (ignored by the
+        exact sum). ``pattern.metadata["method"]`` records which path ran.
     threads : int, optional
         Worker threads (default: ``KINEMAP_NUM_THREADS`` or all cores). Results do not depend
         on it.
