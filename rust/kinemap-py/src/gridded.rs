@@ -69,13 +69,10 @@ impl PyRegularPlan {
         slots: PyReadonlyArray1<'py, u32>,
         threads: Option<usize>,
     ) -> PyResult<()> {
-        let pos = arrays::vectors(&positions, "positions")?;
-        let w = arrays::slice1(&weights, "weights", Some(pos.len()))?;
-        let s = arrays::slice1(&slots, "slots", Some(pos.len()))?;
         let inner = &mut self.inner;
-        py.detach(|| inner.add(pos, w, s, threads))
-            .map_err(CoreErr)?;
-        Ok(())
+        spread(py, &positions, &weights, &slots, |p, w, s| {
+            inner.add(p, w, s, threads)
+        })
     }
 
     /// finish(slot, *, threads=None) -> complex128 (M,): the group sums Σ w_j exp(i q·r_j) on
@@ -88,8 +85,7 @@ impl PyRegularPlan {
         threads: Option<usize>,
     ) -> PyResult<Bound<'py, PyArray1<Complex64>>> {
         let inner = &mut self.inner;
-        let out = py.detach(|| inner.finish(slot, threads)).map_err(CoreErr)?;
-        Ok(out.into_pyarray(py))
+        finished(py, || inner.finish(slot, threads))
     }
 }
 
@@ -148,13 +144,10 @@ impl PyPointPlan {
         slots: PyReadonlyArray1<'py, u32>,
         threads: Option<usize>,
     ) -> PyResult<()> {
-        let pos = arrays::vectors(&positions, "positions")?;
-        let w = arrays::slice1(&weights, "weights", Some(pos.len()))?;
-        let s = arrays::slice1(&slots, "slots", Some(pos.len()))?;
         let inner = &mut self.inner;
-        py.detach(|| inner.add(pos, w, s, threads))
-            .map_err(CoreErr)?;
-        Ok(())
+        spread(py, &positions, &weights, &slots, |p, w, s| {
+            inner.add(p, w, s, threads)
+        })
     }
 
     /// finish(slot, *, threads=None) -> complex128 (M,): group sums at the plan's q-points.
@@ -166,8 +159,7 @@ impl PyPointPlan {
         threads: Option<usize>,
     ) -> PyResult<Bound<'py, PyArray1<Complex64>>> {
         let inner = &mut self.inner;
-        let out = py.detach(|| inner.finish(slot, threads)).map_err(CoreErr)?;
-        Ok(out.into_pyarray(py))
+        finished(py, || inner.finish(slot, threads))
     }
 }
 
@@ -181,4 +173,31 @@ pub fn gridded_kernel_width_py(tol: f64, upsample: f64) -> PyResult<usize> {
         )));
     }
     Ok(kinemap_core::gridded::width_for(tol, upsample))
+}
+
+/// Check and borrow the atoms of an `add` call, then run the spreading without the GIL.
+fn spread<'py, F>(
+    py: Python<'py>,
+    positions: &PyReadonlyArray2<'py, f64>,
+    weights: &PyReadonlyArray1<'py, f64>,
+    slots: &PyReadonlyArray1<'py, u32>,
+    add: F,
+) -> PyResult<()>
+where
+    F: FnOnce(&[[f64; 3]], &[f64], &[u32]) -> kinemap_core::Result<()> + Send,
+{
+    let pos = arrays::vectors(positions, "positions")?;
+    let w = arrays::slice1(weights, "weights", Some(pos.len()))?;
+    let s = arrays::slice1(slots, "slots", Some(pos.len()))?;
+    py.detach(|| add(pos, w, s)).map_err(CoreErr)?;
+    Ok(())
+}
+
+/// Run a plan's `finish` without the GIL and move its result into a numpy array.
+fn finished<'py, F>(py: Python<'py>, finish: F) -> PyResult<Bound<'py, PyArray1<Complex64>>>
+where
+    F: FnOnce() -> kinemap_core::Result<Vec<Complex64>> + Send,
+{
+    let out = py.detach(finish).map_err(CoreErr)?;
+    Ok(out.into_pyarray(py))
 }
