@@ -1,5 +1,5 @@
-//! Timing of the gridded path's stages (ignored by default; run with
-//! `cargo test --release -p kinemap-core --test gridded_timing -- --ignored --nocapture`).
+//! Timing of the gridded path's stages, a probe for tuning (not a test); run with
+//! `cargo run --release -p kinemap-core --example gridded_stages -- [volume|points]`.
 //! Sizes come from the environment: KM_N (atoms), KM_M (grid edge), KM_TOL, KM_SIGMA, KM_THREADS.
 
 use kinemap_core::{PointPlan, RegularPlan};
@@ -28,8 +28,6 @@ fn atoms(n: usize, size: f64) -> (Vec<[f64; 3]>, Vec<f64>) {
     )
 }
 
-#[test]
-#[ignore]
 fn time_regular_volume() {
     let n = env("KM_N", 1_000_000usize);
     let m = env("KM_M", 128usize);
@@ -72,8 +70,6 @@ fn time_regular_volume() {
     );
 }
 
-#[test]
-#[ignore]
 fn time_points() {
     let n = env("KM_N", 1_000_000usize);
     let m = env("KM_M", 1_000_000usize);
@@ -108,4 +104,12 @@ fn time_points() {
         (t3 - t0).as_secs_f64(),
         out.len()
     );
+}
+
+fn main() {
+    match std::env::args().nth(1).as_deref() {
+        Some("points") => time_points(),
+        Some("volume") | None => time_regular_volume(),
+        Some(other) => eprintln!("unknown case {other:?}: use `volume` or `points`"),
+    }
 }
