@@ -182,7 +182,7 @@ def test_unreachable_tolerance_is_refused(xray_model):
 
 
 def test_fine_grids_that_do_not_fit_are_refused(xray_model, monkeypatch):
-    import kinemap._resources as res
+    import kinemap._shared.memory as res
 
     monkeypatch.setattr(res, "available_memory", lambda: 50 << 20)
     monkeypatch.setattr(gridded, "available_memory", lambda: 50 << 20)

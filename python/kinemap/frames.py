@@ -16,8 +16,6 @@ the factor (1 − 1/F) (as a sample variance with divisor F).
 from __future__ import annotations
 
 import os
-import shutil
-import tempfile
 import warnings
 from dataclasses import dataclass
 from pathlib import Path
@@ -25,7 +23,8 @@ from pathlib import Path
 import numpy as np
 
 from .errors import InvalidInputError
-from .pattern import Pattern, atomic_output, save_pattern
+from ._shared.output import check_output
+from .pattern import Pattern, save_pattern
 from .probes import get_probe
 from .qgrid import QGrid
 from .scatter import DEFAULT_CHUNK_ATOMS, KinematicApproximationWarning, scatter
@@ -65,34 +64,35 @@ class FrameAverages:
         return save_parts(self.parts(), prefix, extra=extra)
 
 
-def save_parts(parts: dict[str, Pattern], prefix, extra: dict | None = None, suffix: str = ".h5") -> dict[str, Path]:
-    """Write several patterns as ``<prefix>_<name><suffix>``, all or none (see FrameAverages.save)."""
+def save_parts(parts: dict[str, Pattern], prefix, extra: dict | None = None, suffix: str = ".h5",
+               *, overwrite: bool = False, inputs=()) -> dict[str, Path]:
+    """Write several patterns as ``<prefix>_<name><suffix>``, all or none: every name is
+    checked before anything is written, and each file appears only when complete."""
     prefix = Path(prefix)
     finals = {name: prefix.parent / f"{prefix.name}_{name}{suffix}" for name in parts}
-    first = next(iter(finals.values()))
-    _, probe_tmp = atomic_output(first)  # checks the folder is writable
-    os.unlink(probe_tmp)
-    tmpdir = Path(tempfile.mkdtemp(prefix=f".{prefix.name}.", suffix=".tmp", dir=first.parent))
+    for path in finals.values():
+        check_output(path, overwrite=overwrite, inputs=inputs, what="map file")
+    written: list[Path] = []
     try:
-        written = {}
         for name, pat in parts.items():
-            written[name] = save_pattern(pat, tmpdir / finals[name].name, keep_amplitude=pat.amplitude is not None,
-                                         extra=extra)
-        for name, path in written.items():
-            os.replace(path, finals[name])
-    finally:
-        shutil.rmtree(tmpdir, ignore_errors=True)
+            written.append(save_pattern(pat, finals[name], keep_amplitude=pat.amplitude is not None, extra=extra,
+                                        overwrite=overwrite, inputs=inputs))
+    except BaseException:
+        if not overwrite:  # files this call created are removed; replaced ones cannot be restored
+            for path in written:
+                path.unlink(missing_ok=True)
+        raise
     return finals
 
 
 def _frame_sources(model, frames, open_options):
     """(list of frame labels, list of sources/models) from a path, a source or a sequence."""
-    from .io import AtomSource, open_model, select_frames
+    from .io import FileSource, open_model, select_frames
     from .model import Model
 
     if isinstance(model, (str, os.PathLike)):
         base = open_model(model, **(open_options or {}))
-    elif isinstance(model, AtomSource):
+    elif isinstance(model, FileSource):
         if open_options:
             raise InvalidInputError("`open_options` apply when `model` is a file path")
         base = model

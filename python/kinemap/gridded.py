@@ -37,7 +37,7 @@ import math
 import numpy as np
 
 from . import _core
-from ._resources import available_memory, check_fits, human_bytes
+from ._shared.memory import available_memory, check_fits, human_bytes
 from .errors import InvalidInputError
 from .model import Groups
 from .qgrid import QGrid

@@ -9,12 +9,18 @@ reduces to exp(−B s²) for U = U_iso·I.
 
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
+from collections.abc import Iterator, Mapping
 from dataclasses import dataclass
+from typing import Protocol, runtime_checkable
 
 import numpy as np
 
+from ._shared.memory import check_fits
+from ._shared.validate import real_array
 from .errors import InvalidInputError
+
+#: Bytes of working memory per atom of an in-memory model (arrays, labels, grouping).
+_BYTES_PER_ATOM = 96
 
 #: Largest number of distinct (species, displacement) groups a model may have. Each group
 #: costs one factor table per q-chunk; per-atom B values that all differ should be rounded.
@@ -22,12 +28,12 @@ MAX_GROUPS = 4096
 
 
 def _as_positions(positions, name: str = "positions") -> np.ndarray:
-    try:
-        p = np.asarray(positions, dtype=np.float64)
-    except (TypeError, ValueError) as exc:
-        raise InvalidInputError(f"`{name}` must be an (N, 3) array of numbers: {exc}") from None
+    p = real_array(positions, name, finite=False)
     if p.ndim != 2 or p.shape[1] != 3:
         raise InvalidInputError(f"`{name}` must be an (N, 3) array, got shape {p.shape}")
+    # Per atom: positions, occupancy, B, species (object) and grouping work arrays.
+    check_fits(len(p) * _BYTES_PER_ATOM, f"a model of {len(p):,} atoms in memory",
+               hint="stream it from a file with kinemap.open_model instead")
     bad = ~np.isfinite(p).all(axis=1)
     if bad.any():
         j = int(np.flatnonzero(bad)[0])
@@ -52,6 +58,77 @@ def as_cell(cell, name: str = "cell") -> np.ndarray:
     if abs(vol) < 1e-9:
         raise InvalidInputError(f"`{name}` is singular (volume {vol:.3g} Å³): rows must be independent")
     return c
+
+
+def cell_from_parameters(a: float, b: float, c: float, alpha: float, beta: float, gamma: float) -> np.ndarray:
+    """The cell (rows a, b, c in Å) of lattice parameters, angles in degrees.
+
+    Setting: a along x, b in the xy plane (the usual crystallographic convention).
+
+    Raises
+    ------
+    InvalidInputError
+        For non-positive lengths or angles that do not make a cell.
+    """
+    for name, v in (("a", a), ("b", b), ("c", c)):
+        if not (np.isfinite(v) and v > 0):
+            raise InvalidInputError(f"cell length {name} must be a positive number of Å, got {v!r}")
+    for name, v in (("alpha", alpha), ("beta", beta), ("gamma", gamma)):
+        if not (np.isfinite(v) and 0 < v < 180):
+            raise InvalidInputError(f"cell angle {name} must be between 0 and 180 degrees, got {v!r}")
+    al, be, ga = np.radians([alpha, beta, gamma])
+    cx = c * np.cos(be)
+    cy = c * (np.cos(al) - np.cos(be) * np.cos(ga)) / np.sin(ga)
+    cz2 = c * c - cx * cx - cy * cy
+    if cz2 <= 1e-12 * c * c:
+        raise InvalidInputError(f"cell angles alpha={alpha}, beta={beta}, gamma={gamma} do not make a cell")
+    return np.array([[a, 0.0, 0.0], [b * np.cos(ga), b * np.sin(ga), 0.0], [cx, cy, np.sqrt(cz2)]])
+
+
+def supercell_matrix(supercell, name: str = "supercell") -> np.ndarray:
+    """An integer 3x3 matrix P (box = P·cell) from (n1, n2, n3) or a 3x3 array of integers.
+
+    Raises
+    ------
+    InvalidInputError
+        For non-integer entries or a singular matrix.
+    """
+    a = real_array(supercell, name)
+    if a.shape == (3,):
+        a = np.diag(a)
+    if a.shape != (3, 3):
+        raise InvalidInputError(f"`{name}` must be (n1, n2, n3) or an integer 3x3 matrix, got shape {a.shape}")
+    if not np.allclose(a, np.round(a), rtol=0, atol=1e-9):
+        raise InvalidInputError(f"`{name}` must hold whole numbers (box = P·cell with integer P), got {a.tolist()}")
+    p = np.round(a)
+    if round(abs(float(np.linalg.det(p)))) < 1:
+        raise InvalidInputError(f"`{name}` is singular: {p.astype(int).tolist()}")
+    return p
+
+
+def resolve_box_and_cell(box, cell, supercell) -> tuple[np.ndarray | None, np.ndarray | None]:
+    """(box, cell) from what was given: cell defaults to box; box = P·cell with a supercell.
+
+    Raises
+    ------
+    InvalidInputError
+        When a supercell is given without a cell or box, or box, cell and supercell disagree.
+    """
+    b = None if box is None else as_cell(box, "box")
+    c = None if cell is None else as_cell(cell, "cell")
+    if supercell is None:
+        return b, (c if c is not None else b)
+    p = supercell_matrix(supercell)
+    if c is None and b is None:
+        raise InvalidInputError("`supercell` needs a `cell` (the parent cell) or a `box`")
+    if c is None:
+        return b, np.linalg.solve(p, b)
+    implied = p @ c
+    if b is None:
+        return implied, c
+    if not np.allclose(implied, b, rtol=1e-6, atol=1e-6):
+        raise InvalidInputError(f"`box` {b.tolist()} is not `supercell` × `cell` = {implied.tolist()}")
+    return b, c
 
 
 def _per_atom(value, species: np.ndarray, n: int, name: str, default: float) -> np.ndarray:
@@ -153,9 +230,20 @@ class Model:
         Anisotropic Cartesian displacement tensor U in Å² (symmetric, positive semi-definite);
         T(q) = exp(−½ qᵀUq). Exclusive with `b_iso`/`u_iso`.
     cell : array_like (3, 3), optional
-        Rows are the lattice vectors a, b, c in Å. Needed for fractional input and hkl grids.
+        The lattice that h, k, l refer to: rows a, b, c in Å (default: the box). Needed for
+        fractional input and hkl grids.
+    box : array_like (3, 3), optional
+        The periodic box of the model (rows, Å), e.g. the simulation box of a supercell.
+        None (default, unless `supercell` gives one) means a finite, non-periodic model.
+    supercell : (n1, n2, n3) or integer 3x3 array, optional
+        box = P·cell: give the parent `cell` and the repetitions instead of the box.
     fractional : bool
         Treat `positions` as fractional coordinates of `cell`.
+
+    Notes
+    -----
+    Arrays of a model are read-only once it is built (cached groupings depend on them): make
+    a new model, e.g. with :meth:`subset` or :meth:`translated`, to change atoms.
 
     Raises
     ------
@@ -165,10 +253,10 @@ class Model:
         semi-definite.
     """
 
-    def __init__(self, positions, species, occupancy=None, b_iso=None, u_iso=None,
-                 u_aniso=None, cell=None, fractional: bool = False):
+    def __init__(self, positions, species, *, occupancy=None, b_iso=None, u_iso=None,
+                 u_aniso=None, cell=None, box=None, supercell=None, fractional: bool = False):
         p = _as_positions(positions)
-        self.cell = None if cell is None else as_cell(cell)
+        self.box, self.cell = resolve_box_and_cell(box, cell, supercell)
         if fractional:
             if self.cell is None:
                 raise InvalidInputError("`fractional=True` needs a `cell` to convert the coordinates")
@@ -190,6 +278,14 @@ class Model:
             self.b_iso = _per_atom(b_iso, self.species, n, "b_iso", 0.0)
             _check_range(self.b_iso, "b_iso", 0.0, None)
         self.u_aniso = None if u_aniso is None else self._aniso(u_aniso, n)
+        self._freeze()
+
+    def _freeze(self) -> None:
+        for arr in (self.positions, self.species, self.occupancy, self.b_iso, self.u_aniso):
+            if isinstance(arr, np.ndarray):
+                arr.flags.writeable = False
+        self._groups: Groups | None = None
+        self._counts: dict[str, int] | None = None
 
     def _aniso(self, u_aniso, n: int) -> np.ndarray:
         if isinstance(u_aniso, Mapping):
@@ -232,9 +328,17 @@ class Model:
         """Number of atoms."""
         return len(self.positions)
 
+    def species_counts(self) -> dict[str, int]:
+        """Atoms per species label, sorted by label (computed once)."""
+        if self._counts is None:
+            labels, codes = _factorize_labels(self.species)
+            counts = np.bincount(codes, minlength=len(labels)) if len(codes) else np.zeros(0, int)
+            self._counts = {str(k): int(v) for k, v in zip(labels, counts)}
+        return dict(self._counts)
+
     def species_labels(self) -> list[str]:
         """Distinct species labels, sorted."""
-        return sorted(set(self.species.tolist()))
+        return list(self.species_counts())
 
     def groups(self) -> Groups:
         """Sort atoms into (species, displacement) groups that share one factor f(q)·T(q).
@@ -245,6 +349,11 @@ class Model:
             When there are more than ``MAX_GROUPS`` distinct combinations (for example a
             different B for every atom): round the displacement parameters.
         """
+        if self._groups is None:
+            self._groups = self._make_groups()
+        return self._groups
+
+    def _make_groups(self) -> Groups:
         if self.n_atoms == 0:
             return Groups(index=np.zeros(0, np.uint32), labels=[], b_iso=np.zeros(0), u_aniso=None)
         labels, sp_index = _factorize_labels(self.species)
@@ -280,38 +389,139 @@ class Model:
 
     def iter_chunks(self, chunk_atoms: int):
         """Yield the model in consecutive pieces of at most `chunk_atoms` atoms."""
-        for start in range(0, max(self.n_atoms, 1), chunk_atoms):
+        if chunk_atoms >= self.n_atoms:
+            yield self
+            return
+        for start in range(0, self.n_atoms, chunk_atoms):
             yield self.subset(slice(start, start + chunk_atoms))
 
     def subset(self, index) -> "Model":
         """A new model with the atoms selected by `index` (slice, mask or integer array)."""
+        return self._derived(np.ascontiguousarray(self.positions[index]), index)
+
+    def _derived(self, positions: np.ndarray, index=slice(None)) -> "Model":
         m = Model.__new__(Model)
-        m.cell = self.cell
-        m.positions = np.ascontiguousarray(self.positions[index])
+        m.cell, m.box = self.cell, self.box
+        m.positions = positions
         m.species = self.species[index]
         m.occupancy = np.ascontiguousarray(self.occupancy[index])
         m.b_iso = np.ascontiguousarray(self.b_iso[index])
         m.u_aniso = None if self.u_aniso is None else self.u_aniso[index]
+        m._freeze()
         return m
 
     def translated(self, shift) -> "Model":
         """A copy shifted by the Cartesian vector `shift` (Å)."""
-        m = self.subset(slice(None))
-        m.positions = m.positions + np.asarray(shift, dtype=np.float64)
-        return m
+        s = real_array(shift, "shift", shape=(3,))
+        return self._derived(self.positions + s)
 
     def describe(self) -> dict:
         """A short summary for output files and the command line."""
-        labels, counts = np.unique(self.species.astype(str), return_counts=True)
         return {
             "n_atoms": int(self.n_atoms),
-            "species": {str(k): int(v) for k, v in zip(labels, counts)},
+            "species": self.species_counts(),
             "cell": None if self.cell is None else self.cell.tolist(),
+            "box": None if self.box is None else self.box.tolist(),
         }
 
     def __repr__(self) -> str:
         d = self.describe()
         return f"Model(n_atoms={d['n_atoms']}, species={d['species']})"
+
+
+@runtime_checkable
+class AtomSource(Protocol):
+    """What kinemap's engines need of a model: a :class:`Model`, a file opened with
+    :func:`kinemap.open_model`, a quasicrystal patch, or any object of your own with these
+    members.
+
+    ``iter_chunks(chunk_atoms)`` yields the atoms as consecutive :class:`Model` pieces of at
+    most `chunk_atoms` atoms (Cartesian Å); ``n_atoms`` may be None when a source cannot tell
+    its size before streaming; ``cell`` is the lattice of h, k, l and ``box`` the periodic
+    box (each a 3x3 array of rows, or None).
+    """
+
+    @property
+    def n_atoms(self) -> int | None: ...
+
+    @property
+    def cell(self) -> np.ndarray | None: ...
+
+    @property
+    def box(self) -> np.ndarray | None: ...
+
+    def species_labels(self) -> list[str]: ...
+
+    def describe(self) -> dict: ...
+
+    def iter_chunks(self, chunk_atoms: int) -> Iterator["Model"]: ...
+
+
+class AtomSourceBase:
+    """A small base class for atom sources: subclasses set ``n_atoms``, ``box`` (and
+    ``cell`` when it differs from the box) and implement ``species_labels`` and
+    ``iter_chunks``; ``describe`` and ``read`` come from here."""
+
+    n_atoms: int | None = None
+    box: np.ndarray | None = None
+    _cell: np.ndarray | None = None
+
+    @property
+    def cell(self) -> np.ndarray | None:
+        """The lattice that h, k, l refer to (default: the box)."""
+        return self._cell if self._cell is not None else self.box
+
+    @cell.setter
+    def cell(self, value) -> None:
+        self._cell = None if value is None else as_cell(value)
+
+    def species_labels(self) -> list[str]:
+        raise NotImplementedError
+
+    def iter_chunks(self, chunk_atoms: int) -> Iterator["Model"]:
+        raise NotImplementedError
+
+    def _extra_description(self) -> dict:
+        return {}
+
+    def describe(self) -> dict:
+        """Summary for output files and ``kinemap info``."""
+        d = {
+            "n_atoms": None if self.n_atoms is None else int(self.n_atoms),
+            "species": self.species_labels(),
+            "cell": None if self.cell is None else np.asarray(self.cell).tolist(),
+            "box": None if self.box is None else np.asarray(self.box).tolist(),
+        }
+        d.update(self._extra_description())
+        return d
+
+    def read(self, max_atoms: int = 50_000_000) -> "Model":
+        """All atoms as one in-memory :class:`Model` (refused above `max_atoms`)."""
+        n = self.n_atoms
+        if n is not None and n > max_atoms:
+            raise InvalidInputError(f"{self!r} has {n:,} atoms, more than `max_atoms`={max_atoms:,} to hold "
+                                    "in memory; stream it with iter_chunks()")
+        chunks = [c for c in self.iter_chunks(max(int(n or max_atoms), 1)) if c.n_atoms]
+        if not chunks:
+            return Model(np.zeros((0, 3)), [], cell=self.cell, box=self.box)
+        if len(chunks) == 1:
+            return chunks[0]
+        return concatenate(chunks)
+
+
+def concatenate(models) -> "Model":
+    """One model holding the atoms of several (cell and box of the first)."""
+    models = list(models)
+    if not models:
+        raise InvalidInputError("nothing to concatenate")
+    first = models[0]
+    if any(m.u_aniso is not None for m in models) and not all(m.u_aniso is not None for m in models):
+        raise InvalidInputError("cannot join models with and without anisotropic displacements")
+    u = None if first.u_aniso is None else np.concatenate([m.u_aniso for m in models])
+    return Model(np.concatenate([m.positions for m in models]), np.concatenate([m.species for m in models]),
+                 occupancy=np.concatenate([m.occupancy for m in models]),
+                 b_iso=None if u is not None else np.concatenate([m.b_iso for m in models]),
+                 u_aniso=u, cell=first.cell, box=first.box)
 
 
 def fractional_to_cartesian(fractional, cell) -> np.ndarray:
@@ -324,5 +534,6 @@ def reciprocal_basis(cell) -> np.ndarray:
     return np.linalg.inv(as_cell(cell)).T
 
 
-__all__ = ["Model", "Groups", "fractional_to_cartesian", "reciprocal_basis", "as_cell", "MAX_GROUPS"]
-_ = Sequence  # typing only
+__all__ = ["Model", "Groups", "AtomSource", "AtomSourceBase", "concatenate", "fractional_to_cartesian",
+           "reciprocal_basis", "as_cell", "cell_from_parameters", "supercell_matrix", "resolve_box_and_cell",
+           "MAX_GROUPS"]

@@ -19,14 +19,12 @@ interrupted write never leaves a partial map under the requested name.
 
 from __future__ import annotations
 
-import contextlib
 import json
-import os
-import tempfile
 from pathlib import Path
 
 import numpy as np
 
+from ._shared.output import atomic_write
 from .errors import InvalidInputError, ModelFileError
 from .qgrid import QGrid
 
@@ -40,26 +38,93 @@ class Pattern:
     amplitude : ndarray of complex128 or None
         A(q), shape ``grid.shape`` (None for frame-averaged totals, which have no amplitude).
     intensity : ndarray of float64
-        |A(q)|² (or the average of |A|² over frames), shape ``grid.shape``.
+        |A(q)|² (or the average of |A|² over frames), shape ``grid.shape``. In a measured map
+        NaN marks points that were not measured.
+    sigma : ndarray of float64 or None
+        Standard uncertainty of each intensity (measured maps), same shape.
     units : str
         Units of the amplitude ("electrons", "fm", "angstrom", "1"); intensity is its square.
     metadata : dict
     """
 
-    def __init__(self, grid: QGrid, amplitude=None, intensity=None, metadata=None, units: str = "1"):
+    def __init__(self, grid: QGrid, amplitude=None, intensity=None, metadata=None, units: str = "1",
+                 sigma=None):
         if amplitude is None and intensity is None:
             raise InvalidInputError("a Pattern needs an amplitude or an intensity")
+        if not isinstance(grid, QGrid):
+            raise InvalidInputError(f"`grid` must be a kinemap.QGrid, got {type(grid).__name__}")
         self.grid = grid
         self.amplitude = None if amplitude is None else np.asarray(amplitude, dtype=np.complex128)
         if intensity is None:
             a = self.amplitude
             intensity = a.real * a.real + a.imag * a.imag
+        intensity = np.asarray(intensity)
+        if intensity.dtype.kind == "c":
+            raise InvalidInputError("`intensity` must be real, got a complex array (pass amplitudes as `amplitude`)")
         self._intensity = np.asarray(intensity, dtype=np.float64)
-        for name, arr in (("amplitude", self.amplitude), ("intensity", self._intensity)):
+        self.sigma = None if sigma is None else np.asarray(sigma, dtype=np.float64)
+        for name, arr in (("amplitude", self.amplitude), ("intensity", self._intensity), ("sigma", self.sigma)):
             if arr is not None and arr.shape != tuple(grid.shape):
                 raise InvalidInputError(f"`{name}` has shape {arr.shape}, but the grid has shape {tuple(grid.shape)}")
         self.metadata = dict(metadata or {})
         self.units = units
+
+    @classmethod
+    def from_array(cls, intensity, grid: QGrid, sigma=None, mask=None, *, units: str = "1",
+                   metadata: dict | None = None) -> "Pattern":
+        """A map from arrays, e.g. a measured volume: intensities on `grid` with optional
+        standard uncertainties and a mask.
+
+        Parameters
+        ----------
+        intensity : array_like
+            Shape ``grid.shape``; NaN marks points that were not measured.
+        grid : QGrid
+            Where the values are (Å⁻¹, or h, k, l of a cell for ``QGrid.hkl``).
+        sigma : array_like, optional
+            Standard uncertainties (same shape); points with σ ≤ 0 or non-finite σ are
+            treated as not measured by the comparison.
+        mask : array_like of bool, optional
+            True where a point must be ignored (detector gaps, beamstop); those intensities
+            become NaN.
+        units : str
+            Units whose square the intensities are in ("1" for arbitrary units).
+
+        Raises
+        ------
+        InvalidInputError
+            When shapes disagree with the grid or values are complex.
+        """
+        if not isinstance(grid, QGrid):
+            raise InvalidInputError(f"`grid` must be a kinemap.QGrid, got {type(grid).__name__}")
+        inten = np.array(intensity)
+        if inten.dtype.kind == "c" or inten.dtype.kind not in "biuf":
+            raise InvalidInputError(f"`intensity` must hold real numbers, got dtype {inten.dtype}")
+        inten = inten.astype(np.float64)
+        if inten.shape != tuple(grid.shape):
+            raise InvalidInputError(f"`intensity` has shape {inten.shape}, but the grid has shape {tuple(grid.shape)}")
+        sig = None
+        if sigma is not None:
+            sig = np.asarray(sigma)
+            if sig.dtype.kind not in "biuf":
+                raise InvalidInputError(f"`sigma` must hold real numbers, got dtype {sig.dtype}")
+            sig = sig.astype(np.float64)
+            if sig.shape != inten.shape:
+                raise InvalidInputError(f"`sigma` has shape {sig.shape}, but `intensity` has shape {inten.shape}")
+            if (sig < 0).any():
+                j = np.unravel_index(int(np.flatnonzero(sig < 0)[0]), sig.shape)
+                raise InvalidInputError(f"`sigma` is negative at index {tuple(int(i) for i in j)}: "
+                                        f"{float(sig[j])!r}; uncertainties are >= 0")
+        if mask is not None:
+            m = np.asarray(mask)
+            if m.dtype != bool:
+                raise InvalidInputError(f"`mask` must be a boolean array (True = ignore), got dtype {m.dtype}")
+            if m.shape != inten.shape:
+                raise InvalidInputError(f"`mask` has shape {m.shape}, but `intensity` has shape {inten.shape}")
+            inten[m] = np.nan
+        meta = dict(metadata or {})
+        meta.setdefault("source", "array")
+        return cls(grid, intensity=inten, sigma=sig, metadata=meta, units=units)
 
     @property
     def intensity(self) -> np.ndarray:
@@ -73,9 +138,15 @@ class Pattern:
         return (f"Pattern(kind={self.grid.kind!r}, shape={self.shape}, units={self.units!r}, "
                 f"method={self.metadata.get('method')!r})")
 
-    def save(self, path, *, keep_amplitude: bool = True) -> Path:
-        """Write the map to a NeXus/HDF5 file (atomically). Returns the path."""
-        return save_pattern(self, path, keep_amplitude=keep_amplitude)
+    def save(self, path, *, keep_amplitude: bool = True, overwrite: bool = False) -> Path:
+        """Write the map to a NeXus/HDF5 file (atomically). Returns the path.
+
+        Raises
+        ------
+        FileExistsError
+            When `path` exists and `overwrite` is False.
+        """
+        return save_pattern(self, path, keep_amplitude=keep_amplitude, overwrite=overwrite)
 
 
 def _json_safe(obj):
@@ -126,41 +197,13 @@ def _read_params(group) -> dict:
     return out
 
 
-def atomic_output(path) -> tuple[Path, Path]:
-    """Check that `path` can be written and return (final path, temporary path beside it)."""
-    p = Path(path)
-    folder = p.parent if str(p.parent) else Path(".")
-    if not folder.is_dir():
-        raise OSError(f"cannot write {str(p)!r}: folder {str(folder)!r} does not exist")
-    if not os.access(folder, os.W_OK):
-        raise PermissionError(f"cannot write {str(p)!r}: folder {str(folder)!r} is not writable")
-    fd, tmp = tempfile.mkstemp(prefix=f".{p.name}.", suffix=".tmp", dir=folder)
-    os.close(fd)
-    return p, Path(tmp)
-
-
-@contextlib.contextmanager
-def atomic_write(path):
-    """Context manager giving a temporary path beside `path`; renamed to `path` when the block
-    finishes, deleted when it raises (so no partial file is ever left under either name)."""
-    final, tmp = atomic_output(path)
-    try:
-        yield tmp
-        os.replace(tmp, final)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        raise
-
-
-def save_pattern(pattern: Pattern, path, *, keep_amplitude: bool = True, extra: dict | None = None) -> Path:
+def save_pattern(pattern: Pattern, path, *, keep_amplitude: bool = True, extra: dict | None = None,
+                 overwrite: bool = False, inputs=()) -> Path:
     """Write `pattern` as NeXus NXdata (see the module notes); atomic: temp file then rename."""
     import h5py
 
     final = Path(path)
-    with atomic_write(final) as tmp, h5py.File(tmp, "w") as f:
+    with atomic_write(final, overwrite=overwrite, inputs=inputs, what="map file") as tmp, h5py.File(tmp, "w") as f:
         f.attrs["NX_class"] = "NXroot"
         f.attrs["default"] = "entry"
         f.attrs["creator"] = "kinemap"
@@ -178,6 +221,9 @@ def save_pattern(pattern: Pattern, path, *, keep_amplitude: bool = True, extra: 
         inten = data.create_dataset("intensity", data=pattern.intensity)
         inten.attrs["units"] = f"{pattern.units}^2" if pattern.units != "1" else "1"
         inten.attrs["long_name"] = f"intensity |A(q)|^2 ({pattern.units}^2)"
+        if pattern.sigma is not None:
+            err = data.create_dataset("intensity_errors", data=pattern.sigma)
+            err.attrs["units"] = inten.attrs["units"]
         if keep_amplitude and pattern.amplitude is not None:
             amp = data.create_dataset("amplitude", data=pattern.amplitude)
             amp.attrs["units"] = pattern.units
@@ -256,9 +302,10 @@ def load_pattern(path) -> Pattern:
                      hkl_origin=get("hkl_origin"), hkl_steps=get("hkl_steps"))
         amplitude = data["amplitude"][()] if "amplitude" in data else None
         intensity = data["intensity"][()]
+        sigma = data["intensity_errors"][()] if "intensity_errors" in data else None
         meta = _read_params(f["entry/parameters"]) if "entry/parameters" in f else {}
     units_amp = meta.pop("units", "1")
-    return Pattern(grid=grid, amplitude=amplitude, intensity=intensity, metadata=meta, units=units_amp)
+    return Pattern(grid=grid, amplitude=amplitude, intensity=intensity, metadata=meta, units=units_amp, sigma=sigma)
 
 
-__all__ = ["Pattern", "save_pattern", "load_pattern", "atomic_output", "atomic_write"]
+__all__ = ["Pattern", "save_pattern", "load_pattern"]

@@ -16,7 +16,8 @@ from pathlib import Path
 import numpy as np
 
 from .errors import InvalidInputError
-from .pattern import Pattern, atomic_output, atomic_write
+from ._shared.output import atomic_write, check_output
+from .pattern import Pattern
 
 SCALES = ("log", "linear")
 AXIS_UNITS = ("auto", "rlu", "inv-angstrom")
@@ -40,9 +41,9 @@ def new_figure(width: float, height: float, dpi: int = 100):
     return fig
 
 
-def save_figure(fig, path, dpi: int | None = None) -> Path:
+def save_figure(fig, path, dpi: int | None = None, *, overwrite: bool = True) -> Path:
     """Write `fig` as PNG under a temporary name, renamed when complete."""
-    with atomic_write(path) as tmp:
+    with atomic_write(path, overwrite=overwrite, what="picture") as tmp:
         fig.savefig(tmp, format="png", dpi=dpi if dpi is not None else fig.dpi)
     return Path(path)
 
@@ -294,7 +295,7 @@ def plot_slice(pattern: Pattern, slice_axis=2, slice_index=None, ax=None, **opti
     return plot_map(pattern, ax, slice_axis=slice_axis, slice_index=slice_index, **options)
 
 
-def render(pattern: Pattern, path, *, dpi: int = 100, size=(6.4, 5.2), **options) -> Path:
+def render(pattern: Pattern, path, *, dpi: int = 100, size=(6.4, 5.2), overwrite: bool = False, **options) -> Path:
     """Draw `pattern` (a profile for 1-D maps, a map for 2-D, a slice for 3-D) into a PNG.
 
     Parameters
@@ -329,7 +330,7 @@ def render(pattern: Pattern, path, *, dpi: int = 100, size=(6.4, 5.2), **options
         raise InvalidInputError(f"`size` must be (width, height) in inches, got {size!r}") from None
     if not (0.5 <= w <= 50 and 0.5 <= h <= 50):
         raise InvalidInputError(f"`size` must be between 0.5 and 50 inches each way, got {size!r}")
-    atomic_output(path)[1].unlink()  # fail early on an unwritable path
+    check_output(path, overwrite=overwrite, what="picture")  # fail early on an unwritable path
     fig = new_figure(w, h, dpi)
     ax = fig.add_subplot()
     if len(pattern.grid.shape) == 1:
@@ -338,7 +339,7 @@ def render(pattern: Pattern, path, *, dpi: int = 100, size=(6.4, 5.2), **options
         plot_profile(pattern, ax, **options)
     else:
         plot_map(pattern, ax, **options)
-    final = save_figure(fig, path, dpi)
+    final = save_figure(fig, path, dpi, overwrite=overwrite)
     return final
 
 

@@ -20,7 +20,8 @@ import warnings
 import numpy as np
 
 from . import _core
-from ._resources import check_fits, resolve_threads
+from ._shared.memory import check_fits
+from ._shared.validate import thread_count as resolve_threads
 from .errors import InvalidInputError
 from .model import Model
 from .pattern import Pattern

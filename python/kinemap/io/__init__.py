@@ -20,7 +20,7 @@ from __future__ import annotations
 from pathlib import Path
 
 from ..errors import InvalidInputError, ModelFileError
-from ._base import AtomSource, MemorySource, length_scale, parse_species_map
+from ._base import FileSource, MemorySource, length_scale, parse_species_map
 from .convert import convert, select_frames
 from .h5md import H5MDSource, H5MDWriter, open_h5md, write_h5md
 from .plain import PLAIN_PATHS, PlainSource, open_plain
@@ -78,7 +78,7 @@ def detect_format(path) -> str:
 
 
 def open_model(path, frame=None, *, format: str | None = None, group: str | None = None,
-               species_map=None, unwrap: bool = False, **datasets) -> AtomSource:
+               species_map=None, unwrap: bool = False, **datasets) -> FileSource:
     """Open one frame of a model file as a lazy atom source that streams in bounded chunks.
 
     Parameters
@@ -105,7 +105,7 @@ def open_model(path, frame=None, *, format: str | None = None, group: str | None
 
     Returns
     -------
-    AtomSource
+    FileSource
         With ``n_atoms``, ``n_frames``, ``frame``, ``cell`` (3x3 rows a, b, c in Å, or
         None), ``species_labels()``, ``describe()``, ``iter_chunks(chunk_atoms)``,
         ``at_frame(i)`` and ``read()``.
@@ -165,7 +165,7 @@ __all__ = [
     "open_plain",
     "open_extxyz",
     "open_lammps_dump",
-    "AtomSource",
+    "FileSource",
     "H5MDSource",
     "PlainSource",
     "TextSource",

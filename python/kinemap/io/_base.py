@@ -16,7 +16,7 @@ from typing import Iterator, Sequence
 import numpy as np
 
 from ..errors import InvalidInputError, ModelFileError
-from ..model import Groups, Model, as_cell
+from ..model import AtomSourceBase, Groups, Model, as_cell
 
 #: Atoms per chunk when a reader is asked without a size (about 50 MB of arrays).
 DEFAULT_READ_ATOMS = 1 << 20
@@ -177,10 +177,11 @@ class ChunkModel(Model):
 
     @classmethod
     def build(cls, positions: np.ndarray, label_index: np.ndarray, labels: list[str],
-              occupancy: np.ndarray | None, b_iso: np.ndarray | None, cell) -> "ChunkModel":
+              occupancy: np.ndarray | None, b_iso: np.ndarray | None, cell, box=None) -> "ChunkModel":
         m = cls.__new__(cls)
         n = len(positions)
         m.cell = cell
+        m.box = box
         m.positions = np.ascontiguousarray(positions, dtype=np.float64)
         m._label_index = np.ascontiguousarray(label_index, dtype=np.int64)
         m._labels = list(labels)
@@ -188,6 +189,7 @@ class ChunkModel(Model):
         m.occupancy = np.ones(n) if occupancy is None else np.ascontiguousarray(occupancy, dtype=np.float64)
         m.b_iso = np.zeros(n) if b_iso is None else np.ascontiguousarray(b_iso, dtype=np.float64)
         m.u_aniso = None
+        m._freeze()
         return m
 
     def groups(self) -> Groups:
@@ -243,8 +245,9 @@ def check_chunk_atoms(chunk_atoms) -> int:
     return int(chunk_atoms)
 
 
-class AtomSource:
-    """Base class of the lazy model-file readers (one frame of one file).
+class FileSource(AtomSourceBase):
+    """Base class of the lazy model-file readers (one frame of one file); follows the
+    :class:`kinemap.model.AtomSource` protocol.
 
     Attributes
     ----------
@@ -258,8 +261,10 @@ class AtomSource:
         Frames in the file.
     n_atoms : int
         Atoms in this frame.
+    box : ndarray (3, 3) or None
+        The periodic box of this frame as rows a, b, c (Å), or None for an open model.
     cell : ndarray (3, 3) or None
-        Box edge vectors as rows a, b, c (Å), or None for an open (non-periodic) model.
+        The lattice of h, k, l (default: the box).
     """
 
     format = "?"
@@ -268,52 +273,17 @@ class AtomSource:
     frame: int
     n_frames: int
     n_atoms: int
-    cell: np.ndarray | None
 
-    # -- interface ---------------------------------------------------------------------
-    def species_labels(self) -> list[str]:
-        """Sorted distinct species labels of the atoms in this frame."""
-        raise NotImplementedError
-
-    def iter_chunks(self, chunk_atoms: int = DEFAULT_READ_ATOMS) -> Iterator[Model]:
-        """Yield the atoms of this frame as consecutive :class:`Model` chunks of at most
-        `chunk_atoms` atoms, each read as a bounded piece of the file."""
-        raise NotImplementedError
-
-    def at_frame(self, frame: int) -> "AtomSource":
+    def at_frame(self, frame: int) -> "FileSource":
         """A source on another frame of the same file (cheap: shares the file's index)."""
         raise NotImplementedError
 
-    def _extra_description(self) -> dict:
-        return {}
-
-    # -- shared ----------------------------------------------------------------------
     def describe(self) -> dict:
-        """Summary for output files and ``kinemap info``: file, format, frame, atoms, cell."""
-        d = {
-            "file": str(self.path),
-            "format": self.format,
-            "frame": int(self.frame),
-            "n_frames": int(self.n_frames),
-            "n_atoms": int(self.n_atoms),
-            "species": self.species_labels(),
-            "cell": None if self.cell is None else np.asarray(self.cell).tolist(),
-        }
-        d.update(self._extra_description())
+        """Summary for output files and ``kinemap info``: file, format, frame, atoms, cell, box."""
+        d = {"file": str(self.path), "format": self.format, "frame": int(self.frame),
+             "n_frames": int(self.n_frames)}
+        d.update(super().describe())
         return d
-
-    def read(self, max_atoms: int = 50_000_000) -> Model:
-        """The whole frame as one in-memory :class:`Model` (refused above `max_atoms`)."""
-        if self.n_atoms > max_atoms:
-            raise InvalidInputError(
-                f"{self.path}: frame {self.frame} has {self.n_atoms} atoms, more than "
-                f"`max_atoms`={max_atoms} to hold in memory; stream it with iter_chunks()"
-            )
-        chunks = list(self.iter_chunks(max(self.n_atoms, 1)))
-        m = chunks[0] if chunks else None
-        if m is None:
-            return Model(np.zeros((0, 3)), [], cell=self.cell)
-        return m
 
     def frames(self) -> list[int]:
         """All frame indices of the file."""
@@ -327,7 +297,7 @@ class AtomSource:
                 f"n_frames={self.n_frames}, n_atoms={self.n_atoms})")
 
 
-class MemorySource(AtomSource):
+class MemorySource(FileSource):
     """Frames held in memory as :class:`Model` objects (small files read through ASE)."""
 
     def __init__(self, path, models: list[Model], fmt: str, frame=None, info: dict | None = None):
@@ -340,6 +310,7 @@ class MemorySource(AtomSource):
         self.frame = normalise_frame(frame, self.n_frames, str(path))
         m = models[self.frame]
         self.n_atoms = m.n_atoms
+        self.box = m.box
         self.cell = m.cell
         self._info = dict(info or {})
 

@@ -7,7 +7,7 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import InvalidInputError, ModelFileError
-from ._base import AtomSource
+from ._base import FileSource
 from .h5md import H5MDWriter
 
 _CONVERT_CHUNK = 1 << 18
@@ -118,7 +118,7 @@ def convert(source_or_path, output, *, frames=None, species_map=None, format: st
     """
     from . import open_model
 
-    if isinstance(source_or_path, AtomSource):
+    if isinstance(source_or_path, FileSource):
         base = source_or_path
     else:
         base = open_model(source_or_path, format=format, species_map=species_map, **options)

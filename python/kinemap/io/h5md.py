@@ -36,7 +36,7 @@ from ..errors import InvalidInputError, ModelFileError
 from ..model import Model, as_cell
 from ._base import (
     DEFAULT_READ_ATOMS,
-    AtomSource,
+    FileSource,
     ChunkModel,
     SpeciesTable,
     cell_from_edges,
@@ -331,7 +331,7 @@ class _H5MDIndex:
         return dict(zip(codes, labels))
 
 
-class H5MDSource(AtomSource):
+class H5MDSource(FileSource):
     """One frame of an H5MD file, read in bounded hyperslabs. Build with :func:`open_h5md`
     or :func:`kinemap.open_model`."""
 
@@ -344,8 +344,12 @@ class H5MDSource(AtomSource):
         self.frame = normalise_frame(frame, self.n_frames, str(self.path))
         self.n_atoms = index.n_atoms
         cells = index.cells
-        self.cell = None if cells is None else cells[self.frame if len(cells) > 1 else 0]
+        edges = None if cells is None else cells[self.frame if len(cells) > 1 else 0]
         self.boundary = index.boundary
+        periodic = self.boundary is None or "periodic" in self.boundary
+        self.box = edges if periodic else None
+        self.cell = edges
+        self._edges = edges
         self._labels: list[str] | None = None
 
     @property
@@ -460,7 +464,7 @@ class H5MDSource(AtomSource):
                     img = self._per_atom(f, ix.image, start, stop).astype(np.float64)
                     full = np.zeros((stop - start, 3))
                     full[:, : ix.dim] = img
-                    p += full @ self.cell
+                    p += full @ self._edges
                 raw_sp = self._read(f, ix.species, lambda: self._species_codes(f, start, stop), start, stop)
                 lab_idx, labels = self._label_chunk(raw_sp, start)
                 occ = self._per_atom(f, ix.occupancy, start, stop)
@@ -471,7 +475,7 @@ class H5MDSource(AtomSource):
                 if b is not None:
                     b = b.astype(np.float64) * ix.b_scale
                     check_values(b, "b_iso", 0.0, None, start, f"{self.path}: {ix.b_iso.value_path}")
-                yield ChunkModel.build(p, lab_idx, labels, occ, b, self.cell)
+                yield ChunkModel.build(p, lab_idx, labels, occ, b, self.cell, self.box)
 
     def _extra_description(self) -> dict:
         ix = self._ix
@@ -565,9 +569,9 @@ class H5MDWriter:
     def __init__(self, path, n_atoms: int, species: Sequence[str], *, group: str = "all",
                  boundary="periodic", time_dependent_box: bool = False,
                  position_dtype=np.float64, author: str = "kinemap user",
-                 chunk_atoms: int = 1 << 16):
+                 chunk_atoms: int = 1 << 16, overwrite: bool = False, inputs=()):
         from .. import __version__
-        from ..pattern import atomic_output
+        from .._shared.output import AtomicFile
 
         h5py = _h5py()
         if isinstance(n_atoms, bool) or not isinstance(n_atoms, (int, np.integer)) or n_atoms < 0:
@@ -580,7 +584,8 @@ class H5MDWriter:
         boundary = [str(b) for b in boundary]
         if len(boundary) != 3 or any(b not in ("periodic", "none") for b in boundary):
             raise InvalidInputError(f"`boundary` must be 'periodic'/'none' or three of them, got {boundary!r}")
-        self.final, self.tmp = atomic_output(path)
+        self._out = AtomicFile(path, overwrite=overwrite, inputs=inputs, what="model file")
+        self.final, self.tmp = self._out.final, self._out.tmp
         self.n_atoms = int(n_atoms)
         self.labels = labels
         self.code = {lab: i for i, lab in enumerate(labels)}
@@ -726,20 +731,23 @@ class H5MDWriter:
         if self.n_frames == 0:
             self._abort()
             raise InvalidInputError(f"no frame was written to {str(self.final)!r}")
-        self.f.close()
-        os.replace(self.tmp, self.final)
+        try:
+            self.f.close()
+        except BaseException:
+            self._abort()
+            raise
+        self._out.commit()
         self._closed = True
         return self.final
 
     def _abort(self) -> None:
-        try:
-            self.f.close()
-        except Exception:
-            pass
-        try:
-            os.unlink(self.tmp)
-        except OSError:
-            pass
+        f = getattr(self, "f", None)
+        if f is not None:
+            try:
+                f.close()
+            except Exception:
+                pass
+        self._out.abort()
         self._closed = True
 
     def __enter__(self) -> "H5MDWriter":

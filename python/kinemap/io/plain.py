@@ -31,7 +31,7 @@ import numpy as np
 from ..errors import ModelFileError
 from ._base import (
     DEFAULT_READ_ATOMS,
-    AtomSource,
+    FileSource,
     ChunkModel,
     SpeciesTable,
     cell_from_edges,
@@ -132,7 +132,7 @@ class _PlainIndex:
                              f"({self.n_frames} frame(s) of {self.n_atoms} atoms): mismatched shapes")
 
 
-class PlainSource(AtomSource):
+class PlainSource(FileSource):
     """One frame of a file in the plain HDF5 layout (see the module notes)."""
 
     format = "hdf5"
@@ -144,7 +144,7 @@ class PlainSource(AtomSource):
         self.frame = normalise_frame(frame, self.n_frames, str(self.path))
         self.n_atoms = index.n_atoms
         cells = index.cells
-        self.cell = None if cells is None else cells[self.frame if len(cells) > 1 else 0]
+        self.box = None if cells is None else cells[self.frame if len(cells) > 1 else 0]
         self._labels = None
 
     def at_frame(self, frame: int) -> "PlainSource":
@@ -194,7 +194,7 @@ class PlainSource(AtomSource):
                 stop = min(self.n_atoms, start + chunk_atoms)
                 p = self._read(f, pp, ix.framed, start, stop, (slice(None),)).astype(np.float64)
                 if ix.fractional:
-                    p = p @ self.cell
+                    p = p @ self.box
                 elif ix.scale != 1.0:
                     p = p * ix.scale
                 check_chunk(p, start, f"{self.path}: /{pp}", self.frame)
@@ -208,7 +208,7 @@ class PlainSource(AtomSource):
                     path, framed = ix.optional["b_iso"]
                     b = self._read(f, path, framed, start, stop).astype(np.float64) * ix.b_scale
                     check_values(b, "b_iso", 0.0, None, start, f"{self.path}: /{path}")
-                yield ChunkModel.build(p, idx, labels, occ, b, self.cell)
+                yield ChunkModel.build(p, idx, labels, occ, b, self.cell, self.box)
 
     def _extra_description(self) -> dict:
         ix = self._ix

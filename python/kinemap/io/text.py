@@ -35,7 +35,7 @@ import numpy as np
 from ..errors import ModelFileError
 from ._base import (
     DEFAULT_READ_ATOMS,
-    AtomSource,
+    FileSource,
     ChunkModel,
     SpeciesTable,
     cell_from_edges,
@@ -308,7 +308,7 @@ class _DumpIndex(_TextIndex):
         return fr
 
 
-class TextSource(AtomSource):
+class TextSource(FileSource):
     """One frame of an extended-XYZ or LAMMPS-dump file, parsed in blocks of lines."""
 
     def __init__(self, index: _TextIndex, frame=None):
@@ -319,7 +319,7 @@ class TextSource(AtomSource):
         self.frame = normalise_frame(frame, self.n_frames, str(self.path))
         self._fr = index.frames[self.frame]
         self.n_atoms = self._fr.n_atoms
-        self.cell = self._fr.cell
+        self.box = self._fr.cell
         self._labels = None
 
     def at_frame(self, frame: int) -> "TextSource":
@@ -416,7 +416,7 @@ class TextSource(AtomSource):
                     ids = tok[:, fr.id_col].astype(np.int64)
                 except ValueError:
                     raise ModelFileError(f"{self.path}: atom ids near line {line} are not whole numbers") from None
-            yield ChunkModel.build(p, idx, labels, occ, b, self.cell), ids
+            yield ChunkModel.build(p, idx, labels, occ, b, self.cell, self.box), ids
 
     def _extra_description(self) -> dict:
         fr = self._fr

@@ -21,7 +21,7 @@ from itertools import combinations, product
 
 import numpy as np
 
-from .._resources import available_memory, human_bytes
+from .._shared.memory import available_memory, human_bytes
 from ..errors import InvalidInputError
 from ._enumerate import StripEnumerator
 from ._precise import saturated_lattice
