@@ -201,6 +201,76 @@ class QGrid:
         q = self.q_vectors(start, stop)
         return q @ self.cell.T / (2.0 * np.pi)
 
+    # ----- the periodic box's reciprocal lattice ---------------------------------------
+    def box_coordinates(self, box) -> tuple[np.ndarray, np.ndarray]:
+        """Origin and steps of a regular grid in units of the box's reciprocal lattice:
+        ``box·q/2π`` (rows of the box as vectors); integers on a commensurate grid."""
+        if not self.is_regular:
+            raise InvalidInputError("only regular grids (line, plane, volume, hkl) have steps; "
+                                    "this is a set of arbitrary q-points")
+        b = as_cell(box, "box")
+        o = b @ self.origin / (2.0 * np.pi)
+        st = (b @ np.asarray(self.steps, dtype=np.float64).reshape(-1, 3).T / (2.0 * np.pi)).T
+        return o, st
+
+    def is_commensurate(self, box, *, tol: float = 1e-6) -> bool:
+        """True when every point lies on the reciprocal lattice of the periodic `box`: box·q/2π
+        is an integer vector for the origin and for every step (within `tol`).
+
+        Off that lattice, the finite-box interference ripple of every Bragg peak of a periodic
+        model swamps its diffuse scattering."""
+        o, st = self.box_coordinates(box)
+        vals = np.concatenate([o.reshape(-1), st.reshape(-1)])
+        return bool(np.all(np.abs(vals - np.round(vals)) <= tol))
+
+    def snapped(self, box) -> "QGrid":
+        """The nearest commensurate grid: origin moved to the nearest point of the box's
+        reciprocal lattice, each step replaced by the nearest nonzero lattice vector along it,
+        and the number of points changed so that each edge keeps its length to within one
+        step. hkl grids stay hkl grids of the same cell.
+
+        Raises
+        ------
+        InvalidInputError
+            For arbitrary q-points (no steps to snap).
+        """
+        o, st = self.box_coordinates(box)
+        b = as_cell(box, "box")
+        to_q = 2.0 * np.pi * np.linalg.inv(b)  # box coordinates (column) -> q: q = to_q @ n
+        o_new = np.round(o)
+        steps, shape = [], []
+        for m, n in zip(st, self.shape):
+            if n == 1 or not np.any(m):
+                steps.append(np.zeros(3))
+                shape.append(1)
+                continue
+            m_int = np.round(m)
+            if not np.any(m_int):  # finer than the lattice: the shortest lattice step along it
+                m_int = np.round(m / np.abs(m).max())
+            edge = m * (n - 1)
+            count = int(round(float(edge @ m_int) / float(m_int @ m_int))) + 1
+            steps.append(m_int)
+            shape.append(max(count, 1))
+        origin_q = to_q @ o_new
+        steps_q = np.array([to_q @ m for m in steps])
+        return self._with_layout(origin_q, steps_q, tuple(shape))
+
+    def _with_layout(self, origin, steps, shape) -> "QGrid":
+        """A grid of the same kind (and cell) with new origin, steps and shape."""
+        if self.kind == "hkl":
+            c = self.cell
+            ho = origin @ c.T / (2.0 * np.pi)
+            hs = np.array([s @ c.T / (2.0 * np.pi) for s in steps])
+            values = [ho[np.argmax(np.abs(h))] + np.arange(n) * h[np.argmax(np.abs(h))]
+                      for h, n in zip(hs, shape)]
+            return QGrid(kind="hkl", shape=tuple(shape), origin=origin, steps=np.asarray(steps), cell=c,
+                         axis_names=list(self.axis_names), axis_values=values,
+                         axis_units=list(self.axis_units), hkl_origin=ho, hkl_steps=hs)
+        values = [np.arange(n) * float(np.linalg.norm(s)) for s, n in zip(steps, shape)]
+        return QGrid(kind=self.kind, shape=tuple(shape), origin=origin, steps=np.asarray(steps),
+                     cell=self.cell, axis_names=list(self.axis_names), axis_values=values,
+                     axis_units=list(self.axis_units))
+
     def describe(self) -> dict:
         """A summary for output files."""
         d = {"kind": self.kind, "shape": list(self.shape)}
