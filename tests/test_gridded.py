@@ -5,7 +5,7 @@ import numpy as np
 import pytest
 
 import kinemap as km
-from kinemap import gridded
+from kinemap._engine import gridded
 from kinemap.errors import InvalidInputError
 
 TOLS = [1e-3, 1e-6, 1e-9, 1e-12]
@@ -113,6 +113,7 @@ class ChunkedSource:
     def __init__(self, model, sizes):
         self.model, self.sizes = model, sizes
         self.n_atoms = model.n_atoms
+        self.cell = self.box = None
 
     def species_labels(self):
         return self.model.species_labels()

@@ -51,7 +51,7 @@ def test_silicon_111_position():
     "make, match",
     [
         (lambda: km.QGrid.line([0, 0], [1, 0, 0], 3), "start"),
-        (lambda: km.QGrid.line([0, 0, 0], [1, 0, 0], 0), "at least 1"),
+        (lambda: km.QGrid.line([0, 0, 0], [1, 0, 0], 0), ">= 1"),
         (lambda: km.QGrid.line([0, 0, 0], [1, 0, 0], 2.5), "whole number"),
         (lambda: km.QGrid.hkl(np.eye(3), h=(0, 1)), "lo, hi, n"),
         (lambda: km.QGrid.hkl(np.zeros((3, 3)), h=1), "singular"),

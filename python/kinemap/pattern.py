@@ -228,29 +228,29 @@ def save_pattern(pattern: Pattern, path, *, keep_amplitude: bool = True, extra: 
             amp = data.create_dataset("amplitude", data=pattern.amplitude)
             amp.attrs["units"] = pattern.units
         if g.is_regular:
-            axes = list(g.axis_names)
-            for i, (name, values, unit) in enumerate(zip(g.axis_names, g.axis_values, g.axis_units)):
+            for i, (name, values, unit, label) in enumerate(zip(g.axis_names, g.axis_values, g.axis_units,
+                                                                g.axis_labels)):
                 ds = data.create_dataset(name, data=np.asarray(values, dtype=np.float64))
                 ds.attrs["units"] = unit
+                ds.attrs["long_name"] = f"{label} ({unit})"
                 data.attrs[f"{name}_indices"] = i
+            axes = list(g.axis_names)
             data.attrs["axes"] = np.array(axes if axes else ["."], dtype=h5py.string_dtype())
         else:
             qds = data.create_dataset("q", data=g.q.reshape(tuple(g.shape) + (3,)))
             qds.attrs["units"] = "1/angstrom"
             data.attrs["axes"] = np.array(["."] * max(len(g.shape), 1), dtype=h5py.string_dtype())
+        # The exact description of the grid (corner and step vectors), beside the axes.
         gg = entry.create_group("grid")
         gg.attrs["NX_class"] = "NXcollection"
         gg.create_dataset("kind", data=g.kind)
         gg.create_dataset("shape", data=np.asarray(g.shape, dtype=np.int64))
-        for name in ("origin", "steps", "cell", "hkl_origin", "hkl_steps"):
-            val = getattr(g, name)
+        for name, unit in (("origin", "1/angstrom"), ("steps", "1/angstrom"), ("cell", "angstrom"),
+                           ("hkl_origin", "r.l.u."), ("hkl_steps", "r.l.u.")):
+            val = getattr(g, name, None)
             if val is not None:
                 d = gg.create_dataset(name, data=np.asarray(val, dtype=np.float64))
-                d.attrs["units"] = {"cell": "angstrom", "hkl_origin": "r.l.u.", "hkl_steps": "r.l.u."}.get(name, "1/angstrom")
-        gg.create_dataset("axis_names", data=np.array(g.axis_names or [""], dtype=h5py.string_dtype()))
-        gg.create_dataset("axis_units", data=np.array(g.axis_units or [""], dtype=h5py.string_dtype()))
-        for i, v in enumerate(g.axis_values):
-            gg.create_dataset(f"axis_values_{i}", data=np.asarray(v, dtype=np.float64))
+                d.attrs["units"] = unit
         params = entry.create_group("parameters")
         params.attrs["NX_class"] = "NXcollection"
         meta = dict(pattern.metadata)
@@ -259,6 +259,31 @@ def save_pattern(pattern: Pattern, path, *, keep_amplitude: bool = True, extra: 
             meta.update(extra)
         _write_params(params, meta)
     return final
+
+
+def _read_grid(gg, data, where: str) -> QGrid:
+    """Rebuild the grid from /entry/grid (kind, shape, origin, steps, cell) or /entry/data/q."""
+    def text(name):
+        v = gg[name][()]
+        return v.decode() if isinstance(v, bytes) else str(v)
+
+    def need(group, name, path):
+        if name not in group:
+            raise ModelFileError(f"{where} is not a complete kinemap map: dataset '{path}/{name}' is missing")
+        return np.asarray(group[name][()])
+
+    kind = text("kind")
+    shape = tuple(int(x) for x in np.asarray(gg["shape"][()]).reshape(-1))
+    try:
+        if kind == "points":
+            q = need(data, "q", "/entry/data")
+            return QGrid.points(q.reshape(shape + (3,)))
+        origin = need(gg, "origin", "/entry/grid")
+        steps = need(gg, "steps", "/entry/grid").reshape(-1, 3)
+        cell = np.asarray(gg["cell"][()]) if "cell" in gg else None
+        return QGrid.regular(origin, steps, shape, cell=cell, kind=kind)
+    except InvalidInputError as exc:
+        raise ModelFileError(f"{where}: /entry/grid does not describe a valid grid: {exc}") from None
 
 
 def load_pattern(path) -> Pattern:
@@ -281,29 +306,20 @@ def load_pattern(path) -> Pattern:
     except OSError as exc:
         raise ModelFileError(f"{str(p)!r} is not a readable HDF5 file: {exc}") from None
     with f:
-        for need in ("entry/data/intensity", "entry/grid/kind", "entry/grid/shape"):
-            if need not in f:
-                raise ModelFileError(f"{str(p)!r} is not a kinemap map: dataset '/{need}' is missing")
-        gg = f["entry/grid"]
-        kind = gg["kind"][()].decode() if isinstance(gg["kind"][()], bytes) else str(gg["kind"][()])
-        shape = tuple(int(x) for x in gg["shape"][()])
-        get = lambda n: np.asarray(gg[n][()]) if n in gg else None  # noqa: E731
-        names = [x.decode() if isinstance(x, bytes) else str(x) for x in gg["axis_names"][()]]
-        units = [x.decode() if isinstance(x, bytes) else str(x) for x in gg["axis_units"][()]]
-        names = [n for n in names if n]
-        units = units[: len(names)]
-        values = [np.asarray(gg[f"axis_values_{i}"][()]) for i in range(len(names))]
-        data = f["entry/data"]
-        q = None
-        if kind == "points":
-            q = np.asarray(data["q"][()]).reshape(-1, 3)
-        grid = QGrid(kind=kind, shape=shape, origin=get("origin"), steps=get("steps"), q=q,
-                     cell=get("cell"), axis_names=names, axis_values=values, axis_units=units,
-                     hkl_origin=get("hkl_origin"), hkl_steps=get("hkl_steps"))
+        data = f.get("entry/data")
+        gg = f.get("entry/grid")
+        if data is None or "intensity" not in data or gg is None or "kind" not in gg or "shape" not in gg:
+            missing = [n for n in ("entry/data/intensity", "entry/grid/kind", "entry/grid/shape") if n not in f]
+            raise ModelFileError(f"{str(p)!r} is not a kinemap map: dataset '/{missing[0]}' is missing")
+        grid = _read_grid(gg, data, str(p))
         amplitude = data["amplitude"][()] if "amplitude" in data else None
         intensity = data["intensity"][()]
         sigma = data["intensity_errors"][()] if "intensity_errors" in data else None
         meta = _read_params(f["entry/parameters"]) if "entry/parameters" in f else {}
+        for name, arr in (("intensity", intensity), ("amplitude", amplitude), ("intensity_errors", sigma)):
+            if arr is not None and np.shape(arr) != tuple(grid.shape):
+                raise ModelFileError(f"{str(p)!r}: /entry/data/{name} has shape {np.shape(arr)}, but "
+                                     f"/entry/grid/shape says {tuple(grid.shape)}")
     units_amp = meta.pop("units", "1")
     return Pattern(grid=grid, amplitude=amplitude, intensity=intensity, metadata=meta, units=units_amp, sigma=sigma)
 

@@ -770,6 +770,9 @@ class StreamingPatch:
     use is one chunk however large the patch.
     """
 
+    cell = None  #: no lattice: a patch of a quasicrystal
+    box = None  #: not periodic
+
     def __init__(self, scheme: CutProjectScheme, radius, center=None, species: str = "A"):
         self.scheme = scheme
         self.radius, self.center = scheme._check_region(radius, center)

@@ -36,11 +36,13 @@ import math
 
 import numpy as np
 
-from . import _core
-from ._shared.memory import available_memory, check_fits, human_bytes
-from .errors import InvalidInputError
-from .model import Groups
-from .qgrid import QGrid
+from .. import _core
+from .._shared.memory import available_memory, check_fits, human_bytes
+from .._shared.progress import Progress
+from ..errors import InvalidInputError
+from ..model import Groups
+from ..qgrid import QGrid
+from .factors import FactorTables
 
 #: Oversampling factors σ the planner considers for regular grids (fine grid = σ × output
 #: grid per axis): larger σ needs a narrower kernel (cheaper spreading) but a larger FFT.
@@ -231,7 +233,7 @@ def _bounds(source, chunk_atoms: int):
 
 def _make_plan(source, grid: QGrid, tol: float, chunk_atoms: int):
     """Build the cheapest plan (over the oversampling choices) that fits in memory."""
-    n = getattr(source, "n_atoms", None)
+    n = source.n_atoms
     n = 100_000 if n is None else int(n)
     avail = available_memory()
     if grid.is_regular:
@@ -301,14 +303,12 @@ def gridded_amplitudes(source, grid: QGrid, probe, *, tol: float, threads=None, 
         A tolerance the kernel cannot reach, or fine grids that would not fit in memory
         (refused before allocating, with the estimate).
     """
-    from .scatter import _Progress, group_factors
-
     if not (isinstance(tol, (int, float)) and math.isfinite(tol) and 0 < tol < 1):
         raise InvalidInputError(f"`tol` must be a relative tolerance in (0, 1), got {tol!r}")
     plan, grid_bytes, interp_bytes = _make_plan(source, grid, float(tol), chunk_atoms)
     m = grid.size
-    n_total = getattr(source, "n_atoms", None)
-    prog = _Progress(progress, int(n_total) * m if n_total is not None else 0)
+    n_total = source.n_atoms
+    prog = Progress(progress, int(n_total) * m if n_total is not None else 0)
     slots: dict = {}
     try:
         for chunk in source.iter_chunks(chunk_atoms):
@@ -331,13 +331,14 @@ def gridded_amplitudes(source, grid: QGrid, probe, *, tol: float, threads=None, 
     finally:
         prog.close()
     out = np.zeros(m, dtype=np.complex128)
+    tables = FactorTables(probe)
     for key, slot in slots.items():
         sums = plan.finish(slot, threads=threads)
         one = _one_group(key)
         for q0 in range(0, m, _BLOCK_Q):
             q1 = min(m, q0 + _BLOCK_Q)
-            q = grid.q_vectors(q0, q1)
-            out[q0:q1] += group_factors(probe, one, q)[0] * sums[q0:q1]
+            out[q0:q1] += tables.table(one, ("flat", q0, q1), grid.q_norms(q0, q1) / (4.0 * np.pi),
+                                       lambda q0=q0, q1=q1: grid.q_vectors(q0, q1))[0] * sums[q0:q1]
         del sums
     return out.reshape(grid.shape)
 

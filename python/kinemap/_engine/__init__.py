@@ -1,0 +1,36 @@
+"""The engine: drivers of the Rust core's exact and gridded sums.
+
+``amplitudes(source, grid, probe, ...)`` streams the atom chunks of any atom source (see
+:class:`kinemap.model.AtomSource`) through the chosen path and returns A(q) on the grid.
+Nothing here validates user input (``kinemap.scatter`` does) or knows about files or plots.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..qgrid import QGrid
+from .exact import exact_amplitudes
+from .gridded import choose, gridded_amplitudes
+
+METHODS = ("auto", "exact", "gridded")
+
+
+def choose_method(n_atoms: int | None, grid: QGrid, tol: float) -> str:
+    """The path ``method="auto"`` takes: "exact" or "gridded" (see :func:`kinemap._engine.gridded.choose`)."""
+    return choose(n_atoms, grid, tol)
+
+
+def amplitudes(source, grid: QGrid, probe, *, method: str, tol: float, threads, progress,
+               chunk_atoms: int) -> tuple[np.ndarray, str]:
+    """A(q) on `grid` (complex128, shape ``grid.shape``) and the path that computed it."""
+    used = choose_method(source.n_atoms, grid, tol) if method == "auto" else method
+    if used == "gridded":
+        amp = gridded_amplitudes(source, grid, probe, tol=tol, threads=threads, progress=progress,
+                                 chunk_atoms=chunk_atoms)
+    else:
+        amp = exact_amplitudes(source, grid, probe, threads=threads, progress=progress, chunk_atoms=chunk_atoms)
+    return amp, used
+
+
+__all__ = ["amplitudes", "choose_method", "METHODS"]
