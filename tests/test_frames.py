@@ -13,7 +13,7 @@ import pytest
 
 import kinemap as km
 from kinemap.errors import InvalidInputError
-from kinemap.frames import average_frames
+from kinemap.frames import FewFramesWarning, average_frames
 from kinemap.io import write_h5md
 from conftest import numpy_amplitude
 
@@ -24,7 +24,8 @@ def test_averages_against_numpy(tmp_path, rng):
     frames = [km.Model(rng.uniform(0, 12, (n, 3)), sp) for _ in range(n_frames)]
     path = write_h5md(tmp_path / "traj.h5md", frames)
     grid = km.QGrid.plane([-2, -2, 0.3], [4, 0, 0], [0, 4, 0], (9, 11))
-    avg = average_frames(path, grid, frames="0:5:2", probe="xray", method="exact")
+    with pytest.warns(FewFramesWarning, match="only 3 frame"):
+        avg = average_frames(path, grid, frames="0:5:2", probe="xray", method="exact", remove_drift=False)
     assert avg.frames == [0, 2, 4]
     q = grid.q_vectors()
     s = np.linalg.norm(q, axis=1) / (4 * np.pi)
@@ -37,8 +38,11 @@ def test_averages_against_numpy(tmp_path, rng):
     scale = total.max()
     np.testing.assert_allclose(avg.total.intensity, total, rtol=1e-9, atol=1e-10 * scale)
     np.testing.assert_allclose(avg.bragg.amplitude, mean_a, rtol=1e-9, atol=1e-9 * np.sqrt(scale))
-    np.testing.assert_allclose(avg.bragg.intensity, np.abs(mean_a) ** 2, rtol=1e-9, atol=1e-10 * scale)
-    np.testing.assert_allclose(avg.diffuse.intensity, total - np.abs(mean_a) ** 2, rtol=1e-7, atol=1e-9 * scale)
+    # Unbiased split: diffuse = n/(n−1) × the sample variance of A over frames (divisor n), so
+    # that it is the variance estimator with divisor n − 1 (NumPy's var with ddof=1).
+    diffuse = np.var(amps, axis=0, ddof=1).reshape(grid.shape)
+    np.testing.assert_allclose(avg.diffuse.intensity, diffuse, rtol=1e-7, atol=1e-9 * scale)
+    np.testing.assert_allclose(avg.bragg.intensity, total - diffuse, rtol=1e-7, atol=1e-9 * scale)
     for part in (avg.total, avg.bragg, avg.diffuse):
         assert part.metadata["frames"] == [0, 2, 4]
         assert part.metadata["model"]["frames"] == [0, 2, 4]
@@ -50,7 +54,8 @@ def test_in_memory_frames_and_progress(rng):
     frames = [km.Model(rng.uniform(0, 5, (20, 3)), "C") for _ in range(3)]
     calls = []
     grid = km.QGrid.line([0, 0, 0], [3, 0, 0], 7)
-    avg = average_frames(frames, grid, probe="unit", progress=lambda d, t: calls.append((d, t)))
+    with pytest.warns(FewFramesWarning):
+        avg = average_frames(frames, grid, probe="unit", progress=lambda d, t: calls.append((d, t)))
     assert calls == [(1, 3), (2, 3), (3, 3)]
     assert avg.frames == [0, 1, 2]
     # q = 0: every frame gives A = N exactly, so Bragg = total = N² and diffuse = 0.
@@ -72,7 +77,7 @@ def test_bragg_diffuse_split_of_jittered_crystal(rng):
     half = km.QGrid.hkl(cell, h=(0.0625, 3.9375, 32), k=(0.0625, 3.9375, 32), l=(0.0625, 3.9375, 32))
     avg = average_frames(frames, half, probe="unit")
     q2 = np.sum(half.q_vectors() ** 2, axis=1).reshape(half.shape)
-    expected = (1 - 1 / n_frames) * n * (1 - np.exp(-q2 * sigma**2))  # sample-variance bias (1 − 1/F)
+    expected = n * (1 - np.exp(-q2 * sigma**2))  # the split is unbiased (n/(n−1) correction)
     bins = np.quantile(q2, [0, 0.25, 0.5, 0.75, 1.0])
     for lo, hi in zip(bins[:-1], bins[1:]):
         sel = (q2 >= lo) & (q2 <= hi)
@@ -90,7 +95,8 @@ def test_bragg_diffuse_split_of_jittered_crystal(rng):
 def test_save_writes_three_files_together(tmp_path, rng, monkeypatch):
     frames = [km.Model(rng.uniform(0, 5, (10, 3)), "C") for _ in range(2)]
     grid = km.QGrid.line([0, 0, 0], [3, 0, 0], 5)
-    avg = average_frames(frames, grid, probe="unit")
+    with pytest.warns(FewFramesWarning):
+        avg = average_frames(frames, grid, probe="unit")
     paths = avg.save(tmp_path / "run", extra={"provenance": {"frames": [0, 1]}})
     assert sorted(p.name for p in tmp_path.iterdir()) == ["run_bragg.h5", "run_diffuse.h5", "run_total.h5"]
     back = km.load_pattern(paths["diffuse"])
@@ -119,9 +125,9 @@ def test_save_writes_three_files_together(tmp_path, rng, monkeypatch):
 
 def test_electron_probe_warns_once(rng):
     frames = [km.Model(rng.uniform(0, 5, (10, 3)), "Si") for _ in range(3)]
-    with pytest.warns(km.KinematicApproximationWarning) as rec:
+    with pytest.warns(FewFramesWarning), pytest.warns(km.KinematicApproximationWarning) as rec:
         avg = average_frames(frames, km.QGrid.line([0, 0, 0], [2, 0, 0], 4), probe="electron")
-    assert len(rec) == 1
+    assert sum(issubclass(r.category, km.KinematicApproximationWarning) for r in rec) == 1
     assert avg.total.metadata["cautions"] and avg.total.units == "angstrom"
 
 
@@ -138,7 +144,8 @@ def test_bad_arguments(rng):
 
 def test_progress_bar_runs(rng, capsys):
     frames = [km.Model(rng.uniform(0, 5, (10, 3)), "C") for _ in range(2)]
-    avg = average_frames(frames, km.QGrid.line([0, 0, 0], [1, 0, 0], 5), probe="unit", progress=True)
+    with pytest.warns(FewFramesWarning):
+        avg = average_frames(frames, km.QGrid.line([0, 0, 0], [1, 0, 0], 5), probe="unit", progress=True)
     # q = 0: A = N for every frame (the sum of ten unit scatterers).
     assert avg.bragg.intensity[0] == pytest.approx(100.0, rel=1e-14)
     assert "frame 2/2" in capsys.readouterr().err

@@ -303,5 +303,6 @@ def test_convert_refuses_changing_atom_count(tmp_path):
         convert(tmp_path / "n.xyz", tmp_path / "n.h5md")
     assert sorted(p.name for p in tmp_path.iterdir()) == ["n.xyz"]
     # Averaging does not need equal counts: each frame is its own sum.
-    avg = km.average_frames(tmp_path / "n.xyz", km.QGrid.points([[0.0, 0, 0]]), probe="unit")
+    with pytest.warns(km.frames.FewFramesWarning):
+        avg = km.average_frames(tmp_path / "n.xyz", km.QGrid.points([[0.0, 0, 0]]), probe="unit")
     assert avg.total.intensity[0] == pytest.approx((1 + 4) / 2)  # (|1|² + |2|²)/2 at q = 0

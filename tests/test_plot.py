@@ -46,7 +46,9 @@ def test_hkl_map_in_rlu_and_log_limits(model):
     assert ax.get_xlabel() == "h (r.l.u.)" and ax.get_ylabel() == "k (r.l.u.)"
     mesh = ax.collections[0]
     assert mesh.norm.vmax == pytest.approx(pat.intensity.max())
-    assert mesh.norm.vmin == pytest.approx(max(pat.intensity[pat.intensity > 0].min(), 1e-8 * pat.intensity.max()))
+    # The documented automatic log floor: the 0.5 % quantile of the positive values.
+    assert mesh.norm.vmin == pytest.approx(np.quantile(pat.intensity[pat.intensity > 0], 0.005))
+    assert "(h k 0.5) plane" in ax.get_title()
     assert "electrons²" in fig.axes[1].get_ylabel()  # colour bar label with units
     plt.close(fig)
     fig = plot_map(pat, axis_units="inv-angstrom", scale="linear")
@@ -57,7 +59,7 @@ def test_hkl_map_in_rlu_and_log_limits(model):
 def test_volume_slice(tmp_path, model):
     pat = km.scatter(model, km.QGrid.volume([0, 0, 0], [2, 0, 0], [0, 2, 0], [0, 0, 2], (8, 9, 10)))
     fig = plot_slice(pat, slice_axis="w", slice_index=3)
-    assert "w = " in fig.axes[0].get_title()
+    assert "q along [0 0 1] = 0.6667" in fig.axes[0].get_title()
     z = fig.axes[0].collections[0].get_array()
     np.testing.assert_allclose(np.sort(np.asarray(z).ravel()), np.sort(pat.intensity[:, :, 3].ravel()))
     plt.close(fig)
@@ -99,4 +101,34 @@ def test_interrupted_render_leaves_nothing(tmp_path, model, monkeypatch):
     monkeypatch.setattr(matplotlib.figure.Figure, "savefig", broken)
     with pytest.raises(KeyboardInterrupt):
         render(pat, tmp_path / "i.png")
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_default_slice_goes_through_zero(model):
+    # An even-sized volume from −1 to +1.2 Å⁻¹ along w: 12 points, one of them at w = 0.
+    pat = km.scatter(model, km.QGrid.volume([-1, -1, -1], [2, 0, 0], [0, 2, 0], [0, 0, 2.2], (6, 6, 12)))
+    fig = plot_slice(pat, slice_axis="w")
+    assert "= 0 Å⁻¹ (slice 5 of 12)" in fig.axes[0].get_title()
+    plt.close(fig)
+
+
+def test_single_point_peaks_stay_visible_and_data_unchanged():
+    # A 1201 × 1201 map with one nonzero point: drawn 640 pixels wide it would vanish.
+    g = km.QGrid.plane([-1, -1, 0], [2, 0, 0], [0, 2, 0], (1201, 1201))
+    inten = np.full(g.shape, 1e-6)
+    inten[600, 600] = 1.0
+    pat = km.Pattern(g, intensity=inten)
+    fig = plot_map(pat)
+    shown = np.asarray(fig.axes[0].collections[0].get_array()).reshape(g.shape)
+    assert (shown >= 1.0).sum() >= 25  # widened to at least 5 × 5 points
+    assert pat.intensity[600, 600] == 1.0 and (pat.intensity == 1.0).sum() == 1
+    assert "widened" in fig.axes[0].texts[0].get_text()
+    plt.close(fig)
+
+
+def test_all_nan_map_is_refused_clearly(tmp_path):
+    g = km.QGrid.plane([0, 0, 0], [1, 0, 0], [0, 1, 0], (4, 4))
+    pat = km.Pattern(g, intensity=np.full(g.shape, np.nan))
+    with pytest.raises(km.InvalidInputError, match="no finite values"):
+        render(pat, tmp_path / "x.png", scale="linear")
     assert list(tmp_path.iterdir()) == []

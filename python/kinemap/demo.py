@@ -123,7 +123,7 @@ def run_demo(output="kinemap-demo-output", *, threads=None, progress: bool = Tru
     say(f"  model: {frames[0].n_atoms} atoms ({n_co} Co, {frames[0].n_atoms - n_co} Al), edge {EDGE} A, "
         f"{n_frames} frames with thermal waves ({WAVE_RMS} A) and jitter ({JITTER} A)")
     files["model"] = write_h5md(out / "octagonal_layer.h5md", frames, times=[0.5 * i for i in range(n_frames)],
-                                author="kinemap demo")
+                                author="kinemap demo", overwrite=True)
     source = open_model(files["model"])
 
     plane = QGrid.plane([-Q_MAX, -Q_MAX, 0.0], [2 * Q_MAX, 0.0, 0.0], [0.0, 2 * Q_MAX, 0.0],
@@ -140,14 +140,14 @@ def run_demo(output="kinemap-demo-output", *, threads=None, progress: bool = Tru
     import datetime as _dt
 
     provenance["provenance"]["date"] = _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds")
-    files.update(avg.save(out / "plane", extra=provenance))
+    files.update(avg.save(out / "plane", extra=provenance, overwrite=True))
 
     line = QGrid.line([0.0, 0.0, 0.0], [Q_MAX, 0.0, 0.0], line_points)
     lavg = average_frames(source, line, probe="xray", method="exact", threads=threads, progress=False)
 
     say("  drawing pictures ...")
     for name, pat in avg.parts().items():
-        files[f"{name}_png"] = render(pat, out / f"plane_{name}.png", scale="log",
+        files[f"{name}_png"] = render(pat, out / f"plane_{name}.png", scale="log", overwrite=True,
                                       title=f"{name}: invented Al-Co octagonal layer, {n_frames} frames")
     fig = new_figure(6.4, 4.0)
     ax = fig.add_subplot()

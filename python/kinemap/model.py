@@ -408,7 +408,16 @@ class Model:
         m.b_iso = np.ascontiguousarray(self.b_iso[index])
         m.u_aniso = None if self.u_aniso is None else self.u_aniso[index]
         m._freeze()
+        if isinstance(index, slice) and index == slice(None):  # same atoms: same groups
+            m._groups, m._counts = self._groups, self._counts
         return m
+
+    def moved(self, positions) -> "Model":
+        """A copy with the same atoms at new Cartesian `positions` (N, 3), Å."""
+        p = _as_positions(positions)
+        if p.shape != self.positions.shape:
+            raise InvalidInputError(f"`positions` must have shape {self.positions.shape}, got {p.shape}")
+        return self._derived(np.ascontiguousarray(p))
 
     def translated(self, shift) -> "Model":
         """A copy shifted by the Cartesian vector `shift` (Å)."""

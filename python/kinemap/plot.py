@@ -73,16 +73,27 @@ def _check(name, value, allowed):
         raise InvalidInputError(f"`{name}` must be one of {allowed}, got {value!r}")
 
 
+#: Fraction of the positive values drawn below the lower end of an automatic log scale.
+LOG_FLOOR_QUANTILE = 0.005
+
+
 def _norm(values: np.ndarray, scale: str, vmin, vmax):
+    """Colour limits from the data's own dynamic range: a log scale runs from the 0.5 %
+    quantile of the positive values to the maximum (so weak diffuse scattering beside strong
+    Bragg peaks keeps its colours), a linear one over the finite values."""
     from matplotlib.colors import LogNorm, Normalize
 
     finite = values[np.isfinite(values)]
+    if finite.size == 0:
+        raise InvalidInputError("the map has no finite values to draw (all NaN or infinite)")
     if scale == "log":
         pos = finite[finite > 0]
         if pos.size == 0:
             raise InvalidInputError("a log scale needs positive values, but the map has none; use scale='linear'")
         hi = float(pos.max()) if vmax is None else float(vmax)
-        lo = max(float(pos.min()), hi * 1e-8) if vmin is None else float(vmin)
+        lo = float(np.quantile(pos, LOG_FLOOR_QUANTILE)) if vmin is None else float(vmin)
+        if vmin is None and lo >= hi:
+            lo = hi / 10.0
         if not (0 < lo < hi):
             raise InvalidInputError(f"log scale limits must satisfy 0 < vmin < vmax, got {lo}, {hi}")
         return LogNorm(vmin=lo, vmax=hi)
@@ -113,7 +124,7 @@ def _slice_2d(pattern: Pattern, slice_axis, slice_index):
         raise InvalidInputError(f"`slice_axis` must be 0, 1 or 2 (or an axis name), got {slice_axis!r}")
     ax = int(slice_axis)
     n = g.shape[ax]
-    idx = n // 2 if slice_index is None else int(slice_index)
+    idx = _middle(np.asarray(g.axis_values[ax])) if slice_index is None else int(slice_index)
     if idx < 0:
         idx += n
     if not 0 <= idx < n:
@@ -121,9 +132,24 @@ def _slice_2d(pattern: Pattern, slice_axis, slice_index):
     sel = [slice(None)] * 3
     sel[ax] = idx
     keep = [i for i in range(3) if i != ax]
-    val = g.axis_values[ax][idx] if g.axis_values else idx
-    desc = f"{g.axis_names[ax]} = {val:.4g} {'r.l.u.' if g.kind == 'hkl' else 'Å⁻¹ along the edge'} (index {idx})"
+    val = float(g.axis_values[ax][idx])
+    unit = "r.l.u." if g.axis_units[ax] == "r.l.u." else "Å⁻¹"
+    desc = f"{g.axis_labels[ax]} = {val:.4g} {unit} (slice {idx} of {n})"
     return tuple(sel), keep, desc
+
+
+def _middle(values: np.ndarray) -> int:
+    """The default slice: the one through q = 0 (or h, k, l = 0) when the axis crosses it,
+    otherwise the one nearest the middle of the axis."""
+    if values.min() <= 0 <= values.max():
+        return int(np.argmin(np.abs(values)))
+    return int(np.argmin(np.abs(values - 0.5 * (values.min() + values.max()))))
+
+
+def _display_dilation(shape, axis_pixels: float) -> int:
+    """Width (grid points) of the maximum filter that keeps single-point peaks at least three
+    screen pixels wide when a map has more points than the picture has pixels."""
+    return max(1, int(np.ceil(3.0 * max(shape) / max(axis_pixels, 1.0))))
 
 
 def _plane_coords(pattern: Pattern, keep):
@@ -144,7 +170,11 @@ def _plane_coords(pattern: Pattern, keep):
 
 
 def _fmt_vec(v) -> str:
-    return "(" + ", ".join(f"{x:.3g}" for x in v) + ")"
+    parts = []
+    for x in v:
+        r = round(float(x), 3)
+        parts.append("0" if r == 0 else f"{r:g}")
+    return "[" + " ".join(parts) + "]"
 
 
 def plot_map(pattern: Pattern, ax=None, *, scale: str = "log", axis_units: str = "auto",
@@ -191,6 +221,16 @@ def plot_map(pattern: Pattern, ax=None, *, scale: str = "log", axis_units: str =
     else:
         fig = ax.figure
     norm = _norm(z, scale if quantity != "phase" else "linear", vmin, vmax)
+    width = _display_dilation(z.shape, 0.75 * fig.get_figwidth() * fig.dpi)
+    note = ""
+    if width > 1 and quantity != "phase" and np.isfinite(z).any():
+        from scipy.ndimage import maximum_filter
+
+        # Display only: narrow peaks would vanish when the picture has fewer pixels than the
+        # map has points (the data are unchanged).
+        filled = np.where(np.isfinite(z), z, -np.inf)
+        z = np.where(np.isfinite(z), maximum_filter(filled, size=width, mode="nearest"), z)
+        note = f"peaks widened to {width} points for display"
     if scale == "log" and quantity != "phase":
         z = np.where(z > 0, z, np.nan)
     use_rlu = axis_units == "rlu" or (axis_units == "auto" and g.kind == "hkl")
@@ -199,8 +239,8 @@ def plot_map(pattern: Pattern, ax=None, *, scale: str = "log", axis_units: str =
             raise InvalidInputError("reciprocal-lattice units need an hkl grid (QGrid.hkl); use axis_units='inv-angstrom'")
         xs, ys = g.axis_values[keep[0]], g.axis_values[keep[1]]
         mesh = ax.pcolormesh(xs, ys, z.T, norm=norm, cmap=cmap, shading="nearest")
-        ax.set_xlabel(f"{g.axis_names[keep[0]]} (r.l.u.)")
-        ax.set_ylabel(f"{g.axis_names[keep[1]]} (r.l.u.)")
+        ax.set_xlabel(f"{g.axis_labels[keep[0]]} (r.l.u.)")
+        ax.set_ylabel(f"{g.axis_labels[keep[1]]} (r.l.u.)")
         ax.set_aspect("auto")
     else:
         x, y, e1, e2 = _plane_coords(pattern, keep)
@@ -208,6 +248,8 @@ def plot_map(pattern: Pattern, ax=None, *, scale: str = "log", axis_units: str =
         ax.set_xlabel(f"q along {_fmt_vec(e1)} (Å⁻¹)")
         ax.set_ylabel(f"q along {_fmt_vec(e2)} (Å⁻¹)")
         ax.set_aspect("equal")
+    if note:
+        ax.text(0.99, 0.01, note, transform=ax.transAxes, ha="right", va="bottom", fontsize=7, color="0.6")
     cb = fig.colorbar(mesh, ax=ax)
     cb.set_label(label)
     if title is None:
@@ -219,18 +261,46 @@ def plot_map(pattern: Pattern, ax=None, *, scale: str = "log", axis_units: str =
     return fig
 
 
+_PARTS = {"total": "total", "bragg": "Bragg part", "diffuse": "diffuse part"}
+
+
+def _grid_phrase(g) -> str:
+    """"(h k 0) plane", "[h 0 0] line", "volume", "plane through q0 = [..] Å⁻¹" ..."""
+    if g.kind == "hkl" and g.is_regular:
+        ranged = [lab for lab, n in zip(g.axis_labels, g.shape)]
+        fixed = g.hkl_origin
+        if all(len(lab) == 1 for lab in ranged):
+            comps = [lab if lab in ranged else f"{fixed[i]:g}" for i, lab in enumerate("hkl")]
+            kind = {1: "line", 2: "plane", 3: "volume"}.get(len(ranged), "point")
+            return f"({' '.join(comps)}) {kind}"
+        return f"{' × '.join(ranged)} (r.l.u.)"
+    if g.is_regular:
+        return f"{g.kind} from q₀ = {_fmt_vec(g.origin)} Å⁻¹"
+    return f"{g.size} q-points"
+
+
 def _default_title(pattern: Pattern) -> str:
+    """What is shown: file, probe, grid, frames and part."""
     md = pattern.metadata
-    parts = []
+    first = []
     model = md.get("model") or {}
     if isinstance(model, dict) and model.get("file"):
-        parts.append(Path(str(model["file"])).name)
+        first.append(Path(str(model["file"])).name)
     probe = md.get("probe")
     if isinstance(probe, dict) and probe.get("probe"):
-        parts.append(str(probe["probe"]))
-    if md.get("frames") is not None and isinstance(md.get("frames"), list):
-        parts.append(f"{len(md['frames'])} frames")
-    return ", ".join(parts)
+        first.append(str(probe["probe"]))
+    first.append(_grid_phrase(pattern.grid))
+    second = []
+    part = md.get("average")
+    if part in _PARTS:
+        split = md.get("split", "frames")
+        second.append(f"{_PARTS[part]} (split over {split})" if part != "total" else "total ⟨|A|²⟩")
+    frames = md.get("frames")
+    if isinstance(frames, list) and frames:
+        second.append(f"{len(frames)} frame{'s' if len(frames) != 1 else ''}")
+    elif isinstance(model, dict) and model.get("frame") is not None:
+        second.append(f"frame {model['frame']}")
+    return ", ".join(first) + ("\n" + ", ".join(second) if second else "")
 
 
 def plot_profile(pattern: Pattern, ax=None, *, scale: str = "log", axis_units: str = "auto",
@@ -269,10 +339,13 @@ def plot_profile(pattern: Pattern, ax=None, *, scale: str = "log", axis_units: s
         if g.kind != "hkl":
             raise InvalidInputError("reciprocal-lattice units need an hkl grid; use axis_units='inv-angstrom'")
         x = g.axis_values[0]
-        ax.set_xlabel(f"{g.axis_names[0]} (r.l.u.)")
+        ax.set_xlabel(f"{g.axis_labels[0]} (r.l.u.)")
     else:
-        x = np.arange(g.shape[0]) * float(np.linalg.norm(g.steps[0]))
-        ax.set_xlabel(f"distance along the line from q₀ = {_fmt_vec(g.origin)} (Å⁻¹)")
+        st = g.steps[0]
+        length = float(np.linalg.norm(st))
+        direction = st / length if length > 0 else np.zeros(3)
+        x = float(g.origin @ direction) + np.arange(g.shape[0]) * length
+        ax.set_xlabel(f"q along {_fmt_vec(direction)} (Å⁻¹)")
     y = np.asarray(values, dtype=np.float64)
     if scale == "log" and quantity != "phase":
         if not np.any(y > 0):

@@ -80,7 +80,7 @@ def _check_list(vals, n_frames, where):
 
 
 def convert(source_or_path, output, *, frames=None, species_map=None, format: str | None = None,
-            position_dtype=np.float64, progress=False, **options) -> Path:
+            position_dtype=np.float64, progress=False, overwrite: bool = False, **options) -> Path:
     """Write a model file (any format :func:`kinemap.open_model` reads) as H5MD 1.1.
 
     Streams: memory stays bounded by one chunk of atoms (plus, for LAMMPS dumps with an
@@ -148,7 +148,7 @@ def convert(source_or_path, output, *, frames=None, species_map=None, format: st
         bar = tqdm(total=n * len(srcs), unit="atom", unit_scale=True, desc="convert")
     try:
         with H5MDWriter(output, n, labels, boundary=boundary, time_dependent_box=td_box,
-                        position_dtype=position_dtype) as w:
+                        position_dtype=position_dtype, overwrite=overwrite, inputs=(base.path,)) as w:
             code_of = np.arange(len(labels))
             labels_arr = np.array(labels, dtype=str)
             codes0 = None

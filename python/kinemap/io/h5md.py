@@ -761,7 +761,7 @@ class H5MDWriter:
 
 
 def write_h5md(path, frames: Model | Iterable[Model], *, steps=None, times=None, group: str = "all",
-               boundary=None, position_dtype=np.float64, author: str = "kinemap user") -> Path:
+               boundary=None, position_dtype=np.float64, author: str = "kinemap user", overwrite: bool = False) -> Path:
     """Write in-memory models (one per frame, same atoms in the same order) as H5MD 1.1.
 
     Parameters
@@ -801,6 +801,7 @@ def write_h5md(path, frames: Model | Iterable[Model], *, steps=None, times=None,
     if cells:
         td_box = any(m.cell is None or not np.allclose(m.cell, first.cell) for m in models)
     with H5MDWriter(path, first.n_atoms, labels, group=group, boundary=boundary, time_dependent_box=td_box,
+                    overwrite=overwrite,
                     position_dtype=position_dtype, author=author) as w:
         w.write_species(first.species)
         if np.any(first.occupancy != 1.0):
