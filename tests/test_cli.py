@@ -1,7 +1,7 @@
 """The ``kinemap`` command line, end to end through ``kinemap.cli.main`` and as a subprocess.
 
 References: maps are checked against a NumPy direct sum (unit probe) or the library call they
-wrap; the file layout against the NeXus NXdata rules (REFERENCES.md) read with plain h5py.
+wrap; the file layout against the NeXus NXdata rules (docs/references.md, File formats) read with plain h5py.
 """
 
 import os

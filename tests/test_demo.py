@@ -3,7 +3,7 @@
 References: at q = 0 every frame's amplitude is Σ_j f_j(0) whatever the displacements, so the
 Bragg part is (N_Al f_Al(0) + N_Co f_Co(0))² and the diffuse part 0 (f0 from periodictable's
 Waasmaier–Kirfel table, a general-purpose library); the octagonal Fourier module
-k = ½ Σ h_j e_j∥ / edge, e_j∥ = (cos πj/4, sin πj/4) (Baake & Grimm 2013, REFERENCES.md).
+k = ½ Σ h_j e_j∥ / edge, e_j∥ = (cos πj/4, sin πj/4) (Baake & Grimm 2013; docs/references.md).
 """
 
 import numpy as np

@@ -1,5 +1,6 @@
-"""Occupancy and Debye–Waller factors (ITC Vol. C §8.1 — memory; REFERENCES.md:
-T = exp(−B s²), B = 8π²⟨u²⟩; ⟨u²⟩ = 0.01 Å² gives B = 0.789568 Å², T(0.5) = 0.820869)."""
+"""Occupancy and Debye–Waller factors (ITC Vol. C §8.1 — memory; docs/references.md,
+"Debye–Waller factor": T = exp(−B s²), B = 8π²⟨u²⟩; ⟨u²⟩ = 0.01 Å² gives B = 0.789568 Å²,
+T(0.5) = 0.820869)."""
 
 import numpy as np
 import pytest
@@ -7,7 +8,7 @@ import pytest
 import kinemap as km
 from kinemap import InvalidInputError
 
-A = 5.6402  # rocksalt cell edge (Å), REFERENCES.md
+A = 5.6402  # rocksalt cell edge (Å), docs/references.md ("Crystals")
 
 
 def rocksalt(**kw):
@@ -25,7 +26,7 @@ def bragg(model, probe="xray"):
 
 
 def test_reference_values_of_the_convention():
-    # B = 8π²⟨u²⟩ and T(s) = exp(−B s²): REFERENCES.md check values.
+    # B = 8π²⟨u²⟩ and T(s) = exp(−B s²): check values of docs/references.md.
     m = km.Model([[0, 0, 0]], "Fe", u_iso=0.01)
     assert abs(m.b_iso[0] - 0.789568) < 1e-6
     q = 4 * np.pi * 0.5

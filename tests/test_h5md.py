@@ -2,7 +2,7 @@
 
 The files here are written directly with h5py following the H5MD 1.1 specification
 (de Buyl, Colberg & Höfling, Comput. Phys. Commun. 185 (2014) 1546; layout as summarised in
-REFERENCES.md): ``particles/<group>/position/{step,time,value}``, ``box`` with attributes
+docs/references.md, File formats): ``particles/<group>/position/{step,time,value}``, ``box`` with attributes
 ``dimension`` and ``boundary`` and data element ``edges``, ``species`` as an enumeration or
 integers. The reference for every read-back is the NumPy array the test wrote.
 """

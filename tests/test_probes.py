@@ -130,8 +130,8 @@ def test_aliases_map_site_labels():
 # --------------------------------------------------------------------------------------
 # X-ray: Waasmaier & Kirfel (1995)
 # --------------------------------------------------------------------------------------
-# Check values from /work/shared/REFERENCES.md: WK f0 computed with periodictable and xraydb,
-# identical to 6 decimals.
+# Check values of docs/references.md ("X-ray form factors"): WK f0 computed with periodictable
+# and xraydb, identical to 6 decimals.
 @pytest.mark.parametrize("label, s, f0", [
     ("Fe", 0.0, 25.994603),
     ("Fe", 0.25, 18.359445),
@@ -144,7 +144,7 @@ def test_aliases_map_site_labels():
 def test_xray_wk_check_values(label, s, f0):
     f = get_probe("xray").scattering_factors([label], [s])
     assert f[0, 0].imag == 0.0
-    assert f[0, 0].real == pytest.approx(f0, abs=2e-6)  # Waasmaier & Kirfel (1995) via REFERENCES.md
+    assert f[0, 0].real == pytest.approx(f0, abs=2e-6)  # Waasmaier & Kirfel (1995), docs/references.md
 
 
 def test_xray_f0_at_zero_is_z_for_every_neutral_atom():
@@ -170,13 +170,16 @@ def test_xray_f0_at_zero_is_z_minus_charge_for_ions():
 
 
 def test_xray_hydrogen_matches_exact_1s_form_factor():
+    # docs/references.md ("X-ray form factors"): the exact hydrogen 1s form factor
+    # f(s) = 1/(1 + (2π a0 s)²)², a0 = 0.529177 Å, has f(0.25) = 0.349738, and the WK
+    # hydrogen fit agrees with it to < 1e-4 there
+    p = get_probe("xray")
+    assert p.scattering_factors(["H"], [0.25])[0, 0].real == pytest.approx(0.349738, abs=1e-4)
+    # over the whole fit range 0 <= s <= 6 against the analytic form (any QM text); the
+    # worst gap is 3.8e-4 (measured)
     s = np.linspace(0.0, 6.0, 601)
-    exact = 1.0 / (1.0 + (2 * np.pi * A0 * s) ** 2) ** 2  # analytic hydrogen 1s (any QM text)
-    assert 1.0 / (1.0 + (2 * np.pi * A0 * 0.25) ** 2) ** 2 == pytest.approx(0.349738, abs=1e-6)
-    f = get_probe("xray").scattering_factors(["H"], s)[0].real
-    # REFERENCES.md: the WK hydrogen fit agrees with the exact form factor to < 1e-4 at
-    # s = 0.25; over the whole fit range 0 <= s <= 6 the worst gap is 3.8e-4 (measured)
-    assert abs(f[25] - exact[25]) < 1e-4
+    exact = 1.0 / (1.0 + (2 * np.pi * A0 * s) ** 2) ** 2
+    f = p.scattering_factors(["H"], s)[0].real
     assert np.max(np.abs(f - exact)) < 5e-4
 
 
@@ -206,6 +209,7 @@ def test_xray_metadata_names_tables():
     m = get_probe("xray").metadata()
     assert m["probe"] == "xray" and m["units"] == "electrons"
     assert "Waasmaier" in m["table_source"] and "A51" in m["table_source"]
+    assert m["table"] == "waasmaier-kirfel-1995"
     assert all(isinstance(v, (str, int, float)) for v in m.values())
 
 
@@ -217,10 +221,13 @@ def test_probe_base_is_exported():
 # X-ray anomalous terms: Henke, Gullikson & Davis (1993) via periodictable
 # --------------------------------------------------------------------------------------
 def test_xray_wavelength_energy_conversion():
-    # Cu Kα1 λ = 1.540593 Å (REFERENCES.md) <-> E = hc/λ, hc = 12.398419843 keV·Å (CODATA 2018)
+    # Cu Kα1: λ = 1.540593 Å (docs/references.md, "Crystals") and E = 8.0478227 keV
+    # (Deslattes et al., Rev. Mod. Phys. 75 (2003) 35 — memory); the two agree through
+    # E = hc/λ within the last digit of λ (1e-6 relative)
     p = XRayProbe(wavelength=1.540593)
-    assert p.energy_kev == pytest.approx(12.398419843320026 / 1.540593, rel=1e-15)
-    assert p.energy_kev == pytest.approx(8.048, abs=1e-3)  # Cu Kα1 ≈ 8.048 keV (memory)
+    assert p.energy_kev == pytest.approx(8.0478227, rel=1e-6)
+    q = XRayProbe(energy_kev=8.0478227)
+    assert q.wavelength == pytest.approx(1.540593, rel=1e-6)
     m = p.metadata()
     assert m["wavelength_angstrom"] == pytest.approx(1.540593)
     assert "Henke" in m["anomalous_source"] and "f1(E) - Z" in m["anomalous_convention"]

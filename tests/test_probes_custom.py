@@ -1,7 +1,9 @@
 """CustomProbe: user Gaussian sums, sampled grids and constants.
 
 References: periodictable's own Waasmaier–Kirfel evaluation (cromermann.fxrayatstol); the
-analytic hydrogen 1s form factor f(s) = 1/(1 + (2π a0 s)²)²; scipy's CubicSpline.
+analytic hydrogen 1s form factor f(s) = 1/(1 + (2π a0 s)²)²; the Fourier transform of a
+Gaussian charge density integrated numerically with scipy.integrate.quad; the interpolation
+error bound of linear interpolation and the exactness of cubic splines on cubics.
 """
 
 from __future__ import annotations
@@ -33,12 +35,32 @@ def test_gaussian_entry_reproduces_periodictable_wk():
     assert p.metadata()["table_source"] == "WK (1995) Fe3+"
 
 
+def gaussian_density_form_factor(b: float, s: float) -> float:
+    """Form factor of a unit charge spread as a 3-D Gaussian of variance σ² = b/(8π²) per
+    axis, by numerical integration of f(q) = ∫ 4πr² ρ(r) sin(qr)/(qr) dr, q = 4πs."""
+    from scipy.integrate import quad
+
+    var = b / (8 * np.pi**2)
+    q = 4 * np.pi * s
+
+    def integrand(r):
+        rho = (2 * np.pi * var) ** -1.5 * np.exp(-r * r / (2 * var))
+        return 4 * np.pi * r * r * rho * np.sinc(q * r / np.pi)  # np.sinc(x) = sin(πx)/(πx)
+
+    val, _ = quad(integrand, 0.0, 12 * np.sqrt(var), epsabs=1e-13, epsrel=1e-12)
+    return val
+
+
 def test_gaussian_without_constant_and_complex_amplitudes():
+    # each term a·exp(−b s²) is the form factor of charge a in a Gaussian cloud of variance
+    # b/(8π²) (the relation B = 8π²⟨u²⟩ of the Debye–Waller factor); complex a is linear
     p = CustomProbe(gaussians={"X": ([1.0 + 0.5j, 2.0], [1.0, 10.0])})
-    s = np.array([0.0, 0.3])
+    s = np.array([0.0, 0.3, 0.7])
     f = p.scattering_factors(["X"], s)[0]
-    expect = (1.0 + 0.5j) * np.exp(-s**2) + 2.0 * np.exp(-10 * s**2)  # the formula itself
-    np.testing.assert_allclose(f, expect, rtol=1e-15)
+    expect = [(1.0 + 0.5j) * gaussian_density_form_factor(1.0, x) + 2.0 * gaussian_density_form_factor(10.0, x)
+              for x in s]
+    np.testing.assert_allclose(f, expect, rtol=1e-9)
+    assert f[0] == pytest.approx(3.0 + 0.5j, rel=1e-15)  # f(0) = total charge Σ a_i
 
 
 def test_grid_linear_and_cubic_interpolation_of_hydrogen():
@@ -56,10 +78,27 @@ def test_grid_linear_and_cubic_interpolation_of_hydrogen():
     assert err_cub < err_lin / 10
     # at the nodes both reproduce the samples exactly
     np.testing.assert_allclose(lin.scattering_factors(["H*"], s_grid)[0].real, hydrogen(s_grid), rtol=1e-15)
-    from scipy.interpolate import CubicSpline
+    np.testing.assert_allclose(cub.scattering_factors(["H*"], s_grid)[0].real, hydrogen(s_grid), rtol=1e-14)
 
-    ref = CubicSpline(s_grid, hydrogen(s_grid), bc_type=((1, 0.0), "not-a-knot"))(s)  # scipy reference
-    np.testing.assert_allclose(cub.scattering_factors(["H*"], s)[0].real, ref, rtol=1e-12, atol=1e-15)
+
+@pytest.mark.parametrize("s0, poly, exact", [
+    # a cubic spline with the end conditions used (f′(0) = 0 at a grid that starts at s = 0,
+    # not-a-knot elsewhere) reproduces every cubic that satisfies them exactly (spline theory)
+    (0.0, [1.0, 0.0, 2.0, -0.7], True),     # p′(0) = 0
+    (0.1, [1.0, -1.0, 0.0, 3.0], True),     # grid off s = 0: not-a-knot at both ends
+    # …and cannot follow one with p′(0) ≠ 0 from s = 0: the even-in-s condition is imposed
+    (0.0, [1.0, 1.0, 0.0, 0.0], False),
+])
+def test_cubic_interpolation_end_conditions(s0, poly, exact):
+    s_grid = np.linspace(s0, 2.0, 9)
+    p = np.polynomial.Polynomial(poly)
+    probe = CustomProbe(grids={"P": (s_grid, p(s_grid))}, interpolation="cubic")
+    s = np.linspace(s0, 2.0, 201)
+    err = np.max(np.abs(probe.scattering_factors(["P"], s)[0].real - p(s)))
+    if exact:
+        assert err < 1e-12
+    else:
+        assert err > 1e-3
 
 
 def test_grid_complex_values_and_range():

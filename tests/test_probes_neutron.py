@@ -1,7 +1,8 @@
 """Neutron probe: bound coherent scattering lengths against Sears (1992).
 
-Sears, Neutron News 3(3) (1992) 26-37 (= ITC Vol. C Table 4.4.4.1). Values taken from
-/work/shared/REFERENCES.md are marked "REFERENCES"; others were recalled ("memory"). The
+Sears, Neutron News 3(3) (1992) 26-37 (= ITC Vol. C Table 4.4.4.1). Values listed in
+docs/references.md (section "Neutron scattering lengths") are marked "references.md"; others
+were recalled ("memory"). The
 probe's table (periodictable: Rauch & Waschkowski 2003 plus later measurements) differs from
 Sears for some entries; those checks state the wider tolerance and why.
 """
@@ -17,14 +18,14 @@ from kinemap.probes.neutron import scattering_length
 
 
 @pytest.mark.parametrize("label, sears, tol, note", [
-    ("H", -3.739, 0.005, "REFERENCES; table uses Snow 2020 1H -3.7395"),
-    ("D", 6.671, 0.005, "REFERENCES; table uses Snow 2020 2H 6.6681"),
-    ("2H", 6.671, 0.005, "REFERENCES (same isotope written 2H)"),
-    ("C", 6.646, 0.002, "REFERENCES"),
-    ("O", 5.803, 0.001, "REFERENCES"),
-    ("Ni", 10.3, 0.001, "REFERENCES"),
-    ("Na", 3.63, 0.001, "REFERENCES"),
-    ("Cl", 9.577, 0.003, "REFERENCES"),
+    ("H", -3.739, 0.005, "references.md; table uses Snow 2020 1H -3.7395"),
+    ("D", 6.671, 0.005, "references.md; table uses Snow 2020 2H 6.6681"),
+    ("2H", 6.671, 0.005, "references.md (same isotope written 2H)"),
+    ("C", 6.646, 0.002, "references.md"),
+    ("O", 5.803, 0.001, "references.md"),
+    ("Ni", 10.3, 0.001, "references.md"),
+    ("Na", 3.63, 0.001, "references.md"),
+    ("Cl", 9.577, 0.003, "references.md"),
     ("58Ni", 14.4, 0.001, "memory"),
     ("60Ni", 2.8, 0.001, "memory"),
     ("62Ni", -8.7, 0.001, "memory"),
@@ -36,8 +37,8 @@ from kinemap.probes.neutron import scattering_length
     ("Pb", 9.405, 0.003, "memory; table uses 9.401"),
     # known to differ: newer measurements in the probe's table
     ("7Li", -2.22, 0.07, "memory; table uses Gehlhaar 2025, -2.28"),
-    ("V", -0.3824, 0.07, "REFERENCES: Rauch table -0.443"),
-    ("Ti", -3.438, 0.07, "REFERENCES: Rauch table -3.37"),
+    ("V", -0.3824, 0.07, "references.md: Rauch table -0.443"),
+    ("Ti", -3.438, 0.07, "references.md: Rauch table -3.37"),
 ])
 def test_real_part_against_sears_1992(label, sears, tol, note):
     b = get_probe("neutron").scattering_factors([label], [0.0])[0, 0]
@@ -86,13 +87,14 @@ def test_lengths_do_not_depend_on_s_or_charge():
 
 
 def test_absorption_off_gives_real_lengths():
-    f = NeutronProbe(absorption=False).scattering_factors(["Gd", "10B"], [0.1])
+    f = NeutronProbe(absorption=False).scattering_factors(["Gd", "10B", "3He"], [0.1])
     assert np.all(f.imag == 0.0)
-    assert f[1, 0].real == pytest.approx(scattering_length("10B").real)
+    # Sears (1992) 3He: b = 5.74 − 1.483i fm (memory): only the real part is kept
+    assert f[2, 0].real == pytest.approx(5.74, abs=0.01)
 
 
 def test_user_lengths_override_table_and_are_recorded():
-    # Sears (1992) vanadium, -0.3824 fm (REFERENCES), and a site label with its own length
+    # Sears (1992) vanadium, -0.3824 fm (references.md), and a site label with its own length
     p = NeutronProbe(lengths={"V": -0.3824, "Vac": 0.0}, aliases={"V_a": "V", "Ti_a": "Ti"})
     f = p.scattering_factors(["V", "Vac", "V_a", "Ti_a"], [0.0, 0.5])
     assert f[0, 0] == -0.3824 and f[1, 1] == 0.0
@@ -141,7 +143,7 @@ def test_metadata_and_cautions():
     m = p.metadata()
     assert m["probe"] == "neutron" and m["units"] == "fm"
     assert "Rauch" in m["table_source"] and "Sears" in m["table_source"]
-    assert "periodictable" in m["table_library"]
+    assert "periodictable" in m["table_library"] and m["table"] == "periodictable-nsf"
     assert "b' + i b''" in m["sign_convention"]
     assert all(isinstance(v, (str, int, float)) for v in m.values())
     assert "magnetic" in m["scattering"]

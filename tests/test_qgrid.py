@@ -40,7 +40,7 @@ def test_hkl_grid_reciprocal_lattice():
 
 
 def test_silicon_111_position():
-    # REFERENCES.md: Si (111), a = 5.431020511 Å: d = 3.135601 Å, q = 2.003822 Å⁻¹.
+    # docs/references.md, Crystals: Si (111), a = 5.431020511 Å: d = 3.135601 Å, q = 2.003822 Å⁻¹.
     a = 5.431020511
     g = km.QGrid.hkl(np.eye(3) * a, h=1, k=1, l=1)
     q = np.linalg.norm(g.q_vectors()[0])

@@ -1,7 +1,7 @@
 """Quasicrystal generators: densities, distances, tile and vertex statistics, substitution
 versus cut-and-project, streaming, approximants, decoration and bad input.
 
-References (see /work/shared/REFERENCES.md, quasicrystal section): Baake & Grimm,
+References (see docs/references.md, section Quasicrystals): Baake & Grimm,
 "Aperiodic Order" vol. 1 (CUP 2013); de Bruijn, Indag. Math. 43 (1981); Elser, PRB 32 (1985)
 4892. Values marked "(memory)" were recalled, not read from the source.
 """
@@ -27,11 +27,11 @@ def _ball_volume(r, d):
 
 # --------------------------------------------------------------------------- densities
 @pytest.mark.parametrize("scheme, radius, density", [
-    # REFERENCES.md: Fibonacci τ/√5, octagonal 1.207107, Penrose 1.231073 (edge 1)
+    # docs/references.md, Quasicrystals: Fibonacci τ/√5, octagonal 1.207107, Penrose 1.231073 (edge 1)
     (kq.fibonacci(), 3000.0, TAU / math.sqrt(5)),
     (kq.octagonal(), 45.0, 1.207107),
     (kq.penrose(), 45.0, 1.231073),
-    # icosahedral: REFERENCES.md window volume 12.310734 over |det M| = 8 (unit generators
+    # icosahedral: docs/references.md (Quasicrystals) window volume 12.310734 over |det M| = 8 (unit generators
     # with MᵀM = 2I); checked independently below from tile volumes and frequencies
     (kq.icosahedral(), 11.0, 12.310734 / 8),
 ])
@@ -71,11 +71,11 @@ def test_minimum_distance(scheme, radius, d_min):
 
 
 def test_window_measures():
-    # REFERENCES.md: octagon area 2(1+√2), triacontahedron volume 4√(5+2√5) = 12.310734
+    # docs/references.md, Quasicrystals: octagon area 2(1+√2), triacontahedron volume 4√(5+2√5) = 12.310734
     assert kq.octagonal().window.measure == pytest.approx(2 * (1 + math.sqrt(2)), rel=1e-12)
     assert kq.icosahedral().window.measure == pytest.approx(12.310734, abs=5e-7)
     assert kq.icosahedral().window.measure == pytest.approx(4 * math.sqrt(5 + 2 * math.sqrt(5)), rel=1e-12)
-    # Penrose windows P, τP, τP, P (REFERENCES.md): 2|P|(1 + τ²), |P| = (5/2) sin 72°
+    # Penrose windows P, τP, τP, P (docs/references.md, Quasicrystals): 2|P|(1 + τ²), |P| = (5/2) sin 72°
     p_area = 2.5 * math.sin(2 * math.pi / 5)
     w = kq.penrose().window
     assert [round(p.measure / p_area, 9) for p in w.polygons] == pytest.approx([1, TAU ** 2, TAU ** 2, 1])
@@ -88,7 +88,7 @@ def test_window_measures():
 
 # --------------------------------------------------------------------------- tiles, vertices
 def test_fibonacci_tile_frequencies_converge_to_tau():
-    # L:S = τ:1 (REFERENCES.md); a chain of N tiles is within about 1/N
+    # L:S = τ:1 (docs/references.md, Quasicrystals); a chain of N tiles is within about 1/N
     ch = kq.fibonacci()
     for n in (1000, 100_000):
         counts = kq.count_tiles(ch.chain_points(0, n))
@@ -148,7 +148,7 @@ def test_substitution_equals_cut_and_project(m):
         cp = ch.chain_points(0, len(sub))
         assert np.array_equal(sub.indices, cp.indices)
         np.testing.assert_allclose(sub.positions, cp.positions, rtol=0, atol=1e-12 * len(sub))
-    # REFERENCES.md closed form for Fibonacci: x_n = nS + (L − S)⌊(n+1)/τ⌋
+    # docs/references.md (Quasicrystals) closed form for Fibonacci: x_n = nS + (L − S)⌊(n+1)/τ⌋
     if m == 1:
         n = np.arange(5000)
         x = n + (TAU - 1) * np.floor((n + 1) / TAU)
@@ -158,7 +158,7 @@ def test_substitution_equals_cut_and_project(m):
 def test_fibonacci_words():
     ch = kq.fibonacci()
     words = ["".join("L" if v else "S" for v in ch.word(g)) for g in range(5)]
-    # L → LS, S → L (REFERENCES.md)
+    # L → LS, S → L (docs/references.md, Quasicrystals)
     assert words == ["L", "LS", "LSL", "LSLLS", "LSLLSLSL"]
     model = kq.fibonacci_model(34, method="substitution", species="Al")
     assert model.n_atoms == 34 and model.species_labels() == ["Al"]

@@ -1,6 +1,6 @@
 """Peak finding and higher-dimensional indexing of quasicrystal patterns.
 
-References: the Fourier modules and window transforms of /work/shared/REFERENCES.md
+References: the Fourier modules and window transforms of docs/references.md
 (quasicrystal section; Baake & Grimm 2013, Elser 1985); peak shapes are Gaussians, for which
 a parabola through the logarithm of three samples is exact (analytic). Peaks placed at known
 module vectors must come back with their indices; periodic crystals must be rejected.
@@ -72,7 +72,7 @@ def test_find_peaks_on_a_pattern_and_options():
     pat = km.scatter(km.Model(ps.positions, "A", occupancy=np.sin(np.pi * x / x.max()) ** 2), grid, probe="unit")
     pk = kq.find_peaks(pat, threshold=0.01, max_peaks=5)
     assert len(pk) == 5 and np.all(np.diff(pk.intensity) <= 0)
-    # the strongest peak in (0.5, 12.5) 1/Å is (1,2) at q = 2π(1 + 2τ)/√5 (REFERENCES.md module)
+    # the strongest peak in (0.5, 12.5) 1/Å is (1,2) at q = 2π(1 + 2τ)/√5 (docs/references.md module)
     assert pk.q[0, 0] == pytest.approx(2 * np.pi * (1 + 2 * TAU) / math.sqrt(5), rel=2e-5)
     assert len(kq.find_peaks(pat, threshold=0.01, min_q=5.0)) < len(kq.find_peaks(pat, threshold=0.01))
 
@@ -149,7 +149,7 @@ def test_engine_patterns_are_indexed_and_inflation_symmetric():
     assert ok, why
     assert res.fraction_indexed == 1.0
     assert res.rank_correlation > 0.9
-    # inflation: τ k(h) = k(S h) (REFERENCES.md module (h + h'τ)/√5 → (h' + (h+h')τ)/√5)
+    # inflation: τ k(h) = k(S h) (docs/references.md module (h + h'τ)/√5 → (h' + (h+h')τ)/√5)
     chk = kq.inflation_check(res)
     assert chk.power == 1 and chk.factor == pytest.approx(TAU)
     assert len(chk.pairs) >= 8

@@ -1,6 +1,6 @@
 """Analytic transforms of quasicrystal models against kinemap's exact engine.
 
-References (/work/shared/REFERENCES.md, quasicrystal section): the per-point amplitude of a
+References (docs/references.md, section Quasicrystals): the per-point amplitude of a
 model set at a Fourier-module vector tends to the window transform (Baake & Grimm,
 "Aperiodic Order" vol. 1, CUP 2013); Fibonacci check values 0.701998, 0.335745, 0.878991,
 (2,1) extinct; the substitution recursion G_{n+1} = G_n + e^{iqℓ_n} G_{n−1}; Debye–Waller
@@ -9,7 +9,7 @@ T = exp(−B s²), B = 8π²⟨u²⟩ (ITC Vol. C §8.1).
 Patch-size tolerances: a sharp patch of radius R differs from the limit by its boundary
 layer, a fraction ≈ d·a/R of the points (a = edge). We use half of that, d·a/(2R), which
 the measured errors stay below by a factor of 2–10; Fibonacci chains cut at a Fibonacci
-number converge exponentially, at other lengths within about 1/N (REFERENCES.md).
+number converge exponentially, at other lengths within about 1/N (docs/references.md).
 """
 
 from __future__ import annotations
@@ -42,7 +42,7 @@ def engine(positions_or_model, q, occupancy=None):
 
 # --------------------------------------------------------------------------- window maths
 def test_fibonacci_check_values():
-    # REFERENCES.md: |A| at (h, h') = (0,1), (1,0), (1,1); (2,1) is k = τ and extinct
+    # docs/references.md, Quasicrystals: |A| at (h, h') = (0,1), (1,0), (1,1); (2,1) is k = τ and extinct
     amp = np.abs(kq.fibonacci().amplitude([[0, 1], [1, 0], [1, 1], [2, 1]]))
     np.testing.assert_allclose(amp[:3], [0.701998, 0.335745, 0.878991], atol=5e-7)
     assert amp[3] < 1e-15
@@ -149,7 +149,7 @@ def test_fibonacci_chain_amplitudes(n):
     ps = ch.chain_points(0, n)
     a = engine(ps.positions, ch.module(h).q) / n
     t = ch.amplitude(h)
-    # REFERENCES.md: an arbitrary length converges within about 1/N ...
+    # docs/references.md: an arbitrary length converges within about 1/N ...
     np.testing.assert_allclose(a, t, rtol=0, atol=3.0 / n)
     if n in (6765, 10946):
         # ... a chain cut at a Fibonacci number (F_20, F_21) exponentially (magnitudes; the
@@ -238,10 +238,10 @@ def test_approximant_amplitudes_converge_to_quasicrystal():
         ap = ch.approximant((p, q))
         uc = ap.unit_cell()
         a = engine(uc.positions, ap.module(h).q) / len(uc)
-        errs.append(np.abs(np.abs(a) - [0.701998, 0.335745, 0.878991]).max())  # REFERENCES.md
+        errs.append(np.abs(np.abs(a) - [0.701998, 0.335745, 0.878991]).max())  # docs/references.md
     assert errs[0] > errs[1] > errs[2] and errs[2] < 1e-3
     # an approximant is periodic: a block of M cells gives M × the cell's amplitude at its
-    # reciprocal-lattice points (Laue condition, REFERENCES.md crystals section)
+    # reciprocal-lattice points (Laue condition, docs/references.md, Crystals)
     ap = kq.octagonal().approximant((3, 2))
     uc = ap.unit_cell()
     block = ap.approximant_block([3, 2])
@@ -301,7 +301,7 @@ def test_recursion_against_direct_sum_generation_25():
     bound = n * np.abs(q).max() * ps.positions[:, 0].max() * 2.3e-16 * 4
     assert np.abs(rec - ref).max() < bound
     assert np.abs(rec - ref_np).max() < bound
-    # generation −1 … 2 by hand: G_0 = 1, G_1 = 1 + e^{iqL} (REFERENCES.md)
+    # generation −1 … 2 by hand: G_0 = 1, G_1 = 1 + e^{iqL} (docs/references.md)
     np.testing.assert_allclose(ch.transform(q, 1), 1 + np.exp(1j * q * TAU), atol=1e-15)
     np.testing.assert_allclose(ch.transform(q, 2), 1 + np.exp(1j * q * TAU) + np.exp(1j * q * (TAU + 1)), atol=1e-14)
 
@@ -350,7 +350,7 @@ def test_generation_60_without_building_the_chain():
         assert n > 4e12
         ell = n_s + n_l * big_l
         for h, hp in [(0, 1), (1, 0), (1, 1)]:
-            h_s, h_l = hp, h + hp  # lattice steps S, L (REFERENCES.md indices (h, h'))
+            h_s, h_l = hp, h + hp  # lattice steps S, L (docs/references.md indices (h, h'))
             den = big_l + 1 / tau
             k0 = (h_s / tau + h_l) / den
             kp = (h_s * big_l - h_l) / den

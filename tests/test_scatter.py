@@ -3,8 +3,8 @@
 References: an independent NumPy direct sum (the definition of the kinematic amplitude);
 Waasmaier & Kirfel (1995) form factors as carried by `periodictable.cromermann`; textbook
 structure-factor rules (Warren, "X-ray Diffraction", ch. 4 — memory) and the check values of
-REFERENCES.md; the Fibonacci model-set transform (Baake & Grimm, Aperiodic Order Vol. 1 —
-memory) with the check values of REFERENCES.md; Friedel's law.
+docs/references.md (Crystals); the Fibonacci model-set transform (Baake & Grimm, Aperiodic Order Vol. 1 —
+memory) with the check values of docs/references.md (Quasicrystals); Friedel's law.
 """
 
 import threading
@@ -100,7 +100,7 @@ def rocksalt(a=5.6402, reps=(1, 1, 1)):
 
 def test_rocksalt_rules_and_reference_values():
     # Warren ch. 4 (memory): F = 4(fA+fB) all even, 4(fA−fB) all odd, 0 mixed. Check values
-    # F(111) = −18.0160, F(200) = 85.3961 from REFERENCES.md (a = 5.6402 Å, WK f0, no B).
+    # F(111) = −18.0160, F(200) = 85.3961 from docs/references.md, Crystals (a = 5.6402 Å, WK f0, no B).
     model = rocksalt()
     hkls = np.array([[1, 1, 1], [2, 0, 0], [2, 2, 0], [3, 1, 1], [1, 0, 0], [2, 1, 0], [1, 1, 0], [3, 2, 1]])
     grid = km.QGrid.points(2 * np.pi * hkls / 5.6402)
@@ -118,7 +118,7 @@ def test_rocksalt_rules_and_reference_values():
 
 def test_supercell_laue_function():
     # Laue function: an M1×M2×M3 supercell gives M1M2M3·F at the cell's reciprocal points and
-    # zero at the supercell's other reciprocal points (REFERENCES.md).
+    # zero at the supercell's other reciprocal points (docs/references.md, Crystals).
     reps = (2, 3, 2)
     big = rocksalt(reps=reps)
     grid = km.QGrid.hkl(big.cell, h=(0, 4, 5), k=(0, 6, 7), l=(2, 2, 1))  # supercell indices
@@ -140,7 +140,7 @@ def fibonacci_positions(n):
 
 @pytest.mark.parametrize("hh, want", [((0, 1), 0.701998), ((1, 0), 0.335745), ((1, 1), 0.878991), ((2, 1), 0.0)])
 def test_fibonacci_chain_matches_window_transform(hh, want):
-    # Model-set theory (Baake & Grimm; REFERENCES.md check values): per-point amplitude at
+    # Model-set theory (Baake & Grimm; check values of docs/references.md): per-point amplitude at
     # k = (h + h'τ)/√5 tends to |sin(πτk*)/(πτk*)|; an arbitrary length N within about 1/N.
     n = 5000
     x = fibonacci_positions(n)

@@ -9,8 +9,11 @@ probe             units         table
 ``"xray"``        electrons     Waasmaier & Kirfel (1995) f0 (+ Henke f′, f″ at an energy)
 ``"neutron"``     fm            bound coherent lengths b_c (periodictable: Rauch &
                                 Waschkowski 2003 with later updates), complex b' − i b''
-``"electron"``    Å             Peng, Ren, Dudarev & Whelan (1996), 5 Gaussians, s ≤ 2 Å⁻¹,
-                                shipped in ``data/``; multiplied by γ (see ElectronProbe)
+``"electron"``    Å             Mott–Bethe transform of the Waasmaier & Kirfel (1995) X-ray
+                                f0 (atoms and ions, s ≤ 6 Å⁻¹), or with ``table="peng1996"``
+                                Peng, Ren, Dudarev & Whelan (1996), 5 Gaussians, s ≤ 2 Å⁻¹
+                                (typed from memory, see docs/electron_factors.md);
+                                multiplied by γ (see ElectronProbe)
 ``"unit"``        1             f = 1 for every label (point scatterers)
 CustomProbe       user's        per-label Gaussian sums, constants or sampled f(s) grids
 ================  ============  =============================================================

@@ -70,7 +70,8 @@ class Probe:
     """Base class of the probes (X-ray, neutron, electron, custom, unit).
 
     Subclasses set :attr:`name` and :attr:`units` and implement :meth:`_factors` for one
-    resolved species and :meth:`_check_species`, which raises for a species the table lacks.
+    resolved species, :meth:`_check_species`, which raises for a species the table lacks, and
+    :meth:`_metadata`, which names the table (``table``) and cites it (``table_source``).
 
     Parameters
     ----------
@@ -137,7 +138,14 @@ class Probe:
         return out
 
     def metadata(self) -> dict[str, str | float | int]:
-        """Description of the probe for pattern metadata (probe, units, table sources)."""
+        """Description of the probe for pattern metadata.
+
+        Returns
+        -------
+        dict of str to str, float or int
+            At least ``probe`` (name), ``units``, ``table`` (short name of the table used)
+            and ``table_source`` (its full citation); probe-specific entries follow.
+        """
         meta: dict[str, str | float | int] = {"probe": self.name, "units": self.units}
         if self.aliases:
             meta["aliases"] = ", ".join(f"{k}->{v}" for k, v in sorted(self.aliases.items()))
@@ -192,4 +200,4 @@ class UnitProbe(Probe):
         return np.ones((len(labs), s_flat.size), dtype=np.complex128)
 
     def _metadata(self) -> dict[str, str | float | int]:
-        return {"table_source": "none: every scatterer has f = 1 (point scatterers)"}
+        return {"table": "unit", "table_source": "none: every scatterer has f = 1 (point scatterers)"}

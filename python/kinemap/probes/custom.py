@@ -210,6 +210,7 @@ class CustomProbe(Probe):
 
     def _metadata(self) -> dict[str, str | float | int]:
         meta: dict[str, str | float | int] = {
+            "table": "custom",
             "table_source": self.source,
             "custom_labels": ", ".join(self.labels),
         }

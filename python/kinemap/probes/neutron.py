@@ -224,6 +224,7 @@ class NeutronProbe(Probe):
     # -- description ---------------------------------------------------------------------
     def _metadata(self) -> dict[str, str | float | int]:
         meta: dict[str, str | float | int] = {
+            "table": "periodictable-nsf",
             "table_source": NEUTRON_TABLE_CITATION,
             "table_library": f"periodictable {_library_version()} (periodictable.nsf)",
             "sign_convention": (

@@ -256,6 +256,7 @@ class XRayProbe(Probe):
 
     def _metadata(self) -> dict[str, str | float | int]:
         meta: dict[str, str | float | int] = {
+            "table": "waasmaier-kirfel-1995",
             "table_source": WK_CITATION,
             "table_library": f"periodictable {_library_version()} (periodictable.cromermann)",
             "s_max_inv_angstrom": WK_S_MAX,

@@ -5,9 +5,9 @@ is the inflation factor of the substitution L → L^m S, S → L. Its fixed poin
 tile L = λ_m·S, is the cut-and-project set of Z² with
 
 * lattice step "S" ↦ physical S, internal S;   step "L" ↦ physical L, internal −S/λ_m;
-* window [−S, S/λ_m) + shift (REFERENCES.md, Fibonacci: [−1, τ−1) for S = 1);
+* window [−S, S/λ_m) + shift (docs/references.md, Quasicrystals; Fibonacci: [−1, τ−1) for S = 1);
 * positions x_n = (n − b_n) S + b_n L with b_n = ⌊(n − c + 1) λ/(λ+1)⌋, c = shift/S
-  (for m = 1, c = 0: x_n = nS + (L − S)⌊(n+1)/τ⌋, REFERENCES.md);
+  (for m = 1, c = 0: x_n = nS + (L − S)⌊(n+1)/τ⌋, docs/references.md, Quasicrystals);
 * Fourier module k = (h + h′λ)/(√(m²+4)·S), k⊥ = (h′/λ − h)/(√(m²+4)·S) for L = λS, with
   the window transform |T| = |sinc(π(1 + 1/λ)S k⊥)|; for Fibonacci (0,1): 0.701998,
   (1,0): 0.335745, (1,1): 0.878991, (2,1): extinct.
@@ -60,7 +60,7 @@ class ChainScheme(CutProjectScheme):
     """A metallic-mean chain as a cut-and-project scheme (D = 2, d = 1).
 
     Use :func:`fibonacci` or :func:`metallic_chain` to make one. Module indices are
-    (h, h′) with k = (h + h′λ)/(√(m²+4)·S) when L = λS (REFERENCES.md convention).
+    (h, h′) with k = (h + h′λ)/(√(m²+4)·S) when L = λS (docs/references.md, Quasicrystals).
     """
 
     def __init__(self, m: int, short: float, long: float, shift: float):

@@ -5,7 +5,7 @@
 * :func:`icosahedral` — three-dimensional Penrose (Ammann–Kramer) vertex set from Z⁶
   (rhombic-triacontahedron window).
 
-Bases follow /work/shared/REFERENCES.md (Baake & Grimm 2013; de Bruijn 1981; Elser 1985):
+Bases follow docs/references.md, Quasicrystals (Baake & Grimm 2013; de Bruijn 1981; Elser 1985):
 octagonal e_j∥ = (cos πj/4, sin πj/4), e_j⊥ = (cos 3πj/4, sin 3πj/4); Penrose
 e_j∥ = (cos 2πj/5, sin 2πj/5), e_j⊥ = (cos 4πj/5, sin 4πj/5) plus the level Σn_j;
 icosahedral e_j∥ ∝ (±1, τ, 0), (0, ±1, τ), (±τ, 0, 1), e_j⊥ their Galois conjugates
@@ -63,7 +63,7 @@ def octagonal(edge: float = 1.0, shift=None) -> CutProjectScheme:
     Returns
     -------
     CutProjectScheme
-        Density (1+√2)/2 = 1.207107 points per edge² (REFERENCES.md); module
+        Density (1+√2)/2 = 1.207107 points per edge² (docs/references.md, Quasicrystals); module
         k = ½ Σ h_j e_j∥ / edge² (cycles/Å), inflation factor 1+√2.
     """
     a = _edge(edge)
@@ -98,7 +98,7 @@ def penrose(edge: float = 1.0, shift=None) -> CutProjectScheme:
     CutProjectScheme
         Internal space (perpendicular plane, level ι = Σ n_j); windows P, −τP, τP, −P on
         levels 1–4 with P = conv{e_j⊥}; density 1.231073 per edge²; module
-        k = (2/5) Σ h_j e_j∥ / edge² (REFERENCES.md). Indices h and h + (1,1,1,1,1) are the
+        k = (2/5) Σ h_j e_j∥ / edge² (docs/references.md, Quasicrystals). Indices h and h + (1,1,1,1,1) are the
         same module vector.
     """
     a = _edge(edge)
@@ -130,7 +130,7 @@ def icosahedral(edge: float = 1.0, shift=None) -> CutProjectScheme:
     Returns
     -------
     CutProjectScheme
-        Window Σ_j [−½, ½] e_j⊥ with volume 4√(5+2√5) = 12.310734 edge³ (REFERENCES.md);
+        Window Σ_j [−½, ½] e_j⊥ with volume 4√(5+2√5) = 12.310734 edge³ (docs/references.md);
         module k = ½ Σ h_j e_j∥ / edge²; density 12.310734/8 = 1.538842 per edge³.
     """
     a = _edge(edge)
