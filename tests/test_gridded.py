@@ -159,6 +159,10 @@ def test_single_point_grid(xray_model):
 
 
 def test_auto_picks_by_cost():
+    # Extremes where the choice does not hang on the cost model's constants: 100 atoms × 64
+    # points is 6400 pairs (microseconds exactly, while any FFT plan costs more); 10⁷ atoms ×
+    # 2·10⁶ points is 2·10¹³ pairs (over half an hour even at 10¹⁰ pairs/s) against about
+    # 10⁷·w³ kernel points for spreading plus FFTs of ~10⁷ points (seconds).
     small = km.QGrid.plane([0, 0, 0], [1, 0, 0], [0, 1, 0], (8, 8))
     big = km.QGrid.volume([0, 0, 0], [4, 0, 0], [0, 4, 0], [0, 0, 4], (128, 128, 128))
     assert gridded.choose(100, small, 1e-6) == "exact"
@@ -172,9 +176,13 @@ def test_auto_picks_by_cost():
     assert gridded.choose(10**6, km.QGrid.points(rng.uniform(-1, 1, (50, 3))), 1e-6) == "exact"
 
 
-def test_auto_method_is_recorded(xray_model):
-    p = km.scatter(xray_model, GRIDS["line"], method="auto")
-    assert p.metadata["method"] in ("exact", "gridded") and p.metadata["method_requested"] == "auto"
+def test_auto_method_is_recorded_and_accurate(xray_model):
+    # Whichever path auto takes, the result meets the tolerance against the exact sum.
+    p = km.scatter(xray_model, GRIDS["line"], method="auto", tol=1e-8)
+    exact = km.scatter(xray_model, GRIDS["line"], method="exact").amplitude
+    assert rel_l2(p.amplitude, exact) <= 1e-8
+    assert p.metadata["method_requested"] == "auto"
+    assert p.metadata["tolerance"] == (1e-8 if p.metadata["method"] == "gridded" else 0.0)
 
 
 def test_unreachable_tolerance_is_refused(xray_model):

@@ -277,5 +277,7 @@ def test_gil_is_released_during_a_kernel_call():
         stamps.append(time.perf_counter())
     t.join()
     inside = [s for s in stamps if window["start"] < s < window["end"]]
-    assert window["end"] - window["start"] > 0.05
-    assert len(inside) > 1000, f"only {len(inside)} iterations ran during the call"
+    # Were the GIL held for the call (~0.3 s of work), this loop could not run at all inside it
+    # (at most one iteration at each end). Ten iterations prove overlap even on a busy machine,
+    # where the loop may get far fewer turns than on an idle one.
+    assert len(inside) > 10, f"only {len(inside)} iterations ran during the call"

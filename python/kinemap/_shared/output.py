@@ -169,7 +169,7 @@ class AtomicFile:
         self.final = check_output(path, overwrite=overwrite, inputs=inputs, what=what)
         self.overwrite = overwrite
         folder = self.final.parent if str(self.final.parent) else Path(".")
-        remove_leftovers(folder, self.final.name)
+        remove_leftovers(folder)
         tmp = folder / f".{self.final.name}.kinemap-{os.getpid()}-{secrets.token_hex(4)}.tmp"
         fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o666)
         os.close(fd)
