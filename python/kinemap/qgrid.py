@@ -284,5 +284,24 @@ class QGrid:
     def __repr__(self) -> str:
         return f"QGrid(kind={self.kind!r}, shape={self.shape})"
 
+    # ----- detectors (built by kinemap.geometry) ---------------------------------------
+    @classmethod
+    def detector(cls, det, *, orientation=None) -> "QGrid":
+        """q (sample frame, Å⁻¹) of every pixel centre of one detector frame: a points grid
+        of shape (ny, nx), axes "row" and "column"; ``q_sample = Rᵀ k(p̂ − ẑ)`` for a sample
+        at orientation R (sample → lab). See :class:`kinemap.Detector`."""
+        from .geometry.series import detector_grid
+
+        return detector_grid(det, orientation=orientation)
+
+    @classmethod
+    def rotation(cls, det, axis, angles, *, orientation=None) -> "QGrid":
+        """q (sample frame, Å⁻¹) of every pixel of a rotation series about the lab `axis` at
+        `angles` (degrees): a points grid of shape (n_frames, ny, nx); frame n has the sample
+        at ``Rot(axis, angles[n])·orientation``. See :class:`kinemap.Detector`."""
+        from .geometry.series import rotation_grid
+
+        return rotation_grid(det, axis, angles, orientation=orientation)
+
 
 __all__ = ["QGrid"]
