@@ -243,11 +243,13 @@ def crossing_angles(q, *, wavelength: float, axis, orientation=None) -> np.ndarr
     reach = ok & (np.abs(ratio) <= 1.0 + 1e-12)
     base = np.arctan2(big_b, big_a)
     half = np.arccos(np.clip(ratio, -1.0, 1.0))
-    graze = reach & (half < 1e-9)
+    # Grazing within rounding: one crossing, at cos(φ − base) = ±1 exactly.
+    graze = reach & (np.abs(ratio) >= 1.0 - 1e-12)
+    p0 = _wrap_deg(np.degrees(base + np.arccos(np.sign(ratio))))
     p1 = _wrap_deg(np.degrees(base - half))
     p2 = _wrap_deg(np.degrees(base + half))
     lo, hi = np.minimum(p1, p2), np.maximum(p1, p2)
-    out[..., 0] = np.where(reach, np.where(graze, p1, lo), np.nan)
+    out[..., 0] = np.where(reach, np.where(graze, p0, lo), np.nan)
     out[..., 1] = np.where(reach & ~graze, hi, np.nan)
     return out
 
