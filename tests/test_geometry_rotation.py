@@ -50,7 +50,7 @@ def test_crossing_angles_put_q_on_the_sphere_and_count_crossings(rng):
     found = np.isfinite(ang).sum(axis=1)
     assert (changes == found).all()
     assert set(found) == {0, 2}          # random q: none or two
-    for m, col in zip(*np.nonzero(np.isfinite(ang))):
+    for m, col in zip(*np.nonzero(np.isfinite(ang)), strict=True):
         rl = _scipy_rot(axis, ang[m, col]) @ r0 @ q[m]
         assert np.linalg.norm(rl + [0, 0, k]) == pytest.approx(k, rel=1e-10)
     # beyond the limiting sphere |q| > 2k: never
@@ -151,7 +151,8 @@ def test_lorentz_factor_textbook():
     kf = k * np.array([np.sin(tt) * np.cos(psi), np.sin(tt) * np.sin(psi), np.cos(tt)])
     q = kf - [0, 0, k]
     zeta = q[1] / k
-    assert lorentz_factor(q, wavelength=lam, axis=[0, 1, 0]) == pytest.approx(1 / np.sqrt(np.sin(tt) ** 2 - zeta**2), rel=1e-12)
+    expected = 1 / np.sqrt(np.sin(tt) ** 2 - zeta**2)
+    assert lorentz_factor(q, wavelength=lam, axis=[0, 1, 0]) == pytest.approx(expected, rel=1e-12)
     with pytest.raises(InvalidInputError, match="not on the Ewald sphere"):
         lorentz_factor([1.0, 0, 0], wavelength=lam, axis=[0, 1, 0])
 

@@ -242,6 +242,10 @@ def _reflections(args, geo: dict, cell, orientation) -> tuple[list, list, list]:
     return lines, cautions, marks
 
 
+def _fmt(v) -> str:
+    return "(" + ", ".join(f"{float(x):.4g}" for x in v) + ")"
+
+
 def _peaks(frame: np.ndarray, n: int) -> list[tuple[int, int, float]]:
     """The `n` strongest local maxima of a frame (3×3 neighbourhood), strongest first."""
     from scipy.ndimage import maximum_filter
@@ -272,8 +276,7 @@ def _draw(png: Path, frame: np.ndarray, title: str, peaks, marks, overwrite: boo
     fig = new_figure(6.4, 5.6)
     ax = fig.add_subplot()
     pos = frame[np.isfinite(frame) & (frame > 0)]
-    cmap = colormaps["viridis"].copy()
-    cmap.set_bad("0.85")
+    cmap = colormaps["viridis"].with_extremes(bad="0.85")
     if pos.size:
         hi = float(pos.max())
         norm = LogNorm(vmin=max(float(pos.min()), hi * 1e-6), vmax=hi)
@@ -284,6 +287,8 @@ def _draw(png: Path, frame: np.ndarray, title: str, peaks, marks, overwrite: boo
     fig.colorbar(im, ax=ax, label="expected counts (per unit flux)")
     for r, c, label in peaks:
         ax.plot(c, r, "o", ms=12, mfc="none", mec="red", mew=1.2)
+        if "." in label:  # only reflections near integer hkl get a label on the picture
+            continue
         ax.annotate(label, (c, r), xytext=(6, 6), textcoords="offset points", color="red", fontsize=7)
     for r, c, label in marks:
         ax.plot(c, r, "+", ms=14, color="white", mew=1.5)
@@ -313,7 +318,7 @@ def run(args) -> int:
     q_lo, q_hi = det.q_range()
     _say(args, f"model: {source.path} (frame {source.frame}, {source.n_atoms} atoms)")
     _say(args, f"detector: {det.shape[0]}x{det.shape[1]} pixels, |q| {q_lo:.4g} to {q_hi:.4g} 1/angstrom "
-               f"(4 pi/lambda = {2 * det.k:.4g}); " + (f"{rot['angles'].size} frame(s) about {list(rot['axis'])}"
+               f"(4 pi/lambda = {2 * det.k:.4g}); " + (f"{rot['angles'].size} frame(s) about axis {_fmt(rot['axis'])}"
                                                        if rot else "one still frame"))
     lines, cautions, marks = _reflections(args, geo, cell, orientation)
     for line in lines:

@@ -162,7 +162,8 @@ def bin_frames(frames, det, *, grid, axis, angles=None, orientation=None, monito
     p = det.positions(*np.broadcast_arrays(rr, cc))                      # (ny, nx, s², 3)
     q_lab = _q_of_positions(p, det.k)
     sy, sx = det.pixel_size
-    w = _solid_angle(p, (sy / s, sx / s), det.perpendicular_distance) if use_sa else np.full(p.shape[:-1], 1.0 / (s * s))
+    w = (_solid_angle(p, (sy / s, sx / s), det.perpendicular_distance) if use_sa
+         else np.full(p.shape[:-1], 1.0 / (s * s)))
     if use_pol:
         w = w * _polarization(p, det.polarization_fraction, det.polarization_direction)
     w = w * eff[..., None]

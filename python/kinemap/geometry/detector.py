@@ -100,8 +100,8 @@ class Detector:
         beam_point = self._distance * _Z
         self._perp = float(self._normal @ beam_point)
         if self._perp <= 1e-9 * self._distance:
-            raise InvalidInputError(f"`tilt` turns the detector edge-on or away from the sample (normal {self._normal.round(6).tolist()}); "
-                                    "tilts must stay below 90° from the beam")
+            raise InvalidInputError(f"`tilt` turns the detector edge-on or away from the sample (normal "
+                                    f"{self._normal.round(6).tolist()}); tilts must stay below 90° from the beam")
         sy, sx = self._pixel
         y0, x0 = self._center
         self._origin = beam_point - x0 * sx * self._fast - y0 * sy * self._slow

@@ -229,7 +229,8 @@ def expected_counts(model, det, *, orientation=None, axis=None, angles=None, wid
             cc = np.arange(nx, dtype=np.float64)[None, :, None] + du
             p = det.positions(*np.broadcast_arrays(rr, cc))          # (nr, nx, s², 3)
             q_lab = _q_of_positions(p, det.k)
-            w = _solid_angle(p, (sy / s, sx / s), det.perpendicular_distance) if use_sa else np.full(p.shape[:-1], 1.0 / (s * s))
+            w = (_solid_angle(p, (sy / s, sx / s), det.perpendicular_distance) if use_sa
+         else np.full(p.shape[:-1], 1.0 / (s * s)))
             if use_pol:
                 w = w * _polarization(p, det.polarization_fraction, det.polarization_direction)
             for n, phi in enumerate(phis):
