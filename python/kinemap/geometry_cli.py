@@ -305,8 +305,12 @@ def run(args) -> int:
     from .io import open_model
     from .scatter import KinematicApproximationWarning
 
-    out = _check_writable(args.output)
-    png = _check_writable(out.with_suffix(".png"), "picture") if args.png else None
+    from ._shared.output import check_output
+
+    inputs = [args.model, args.geometry]
+    out = check_output(_check_writable(args.output), overwrite=args.overwrite, inputs=inputs, what="frames file")
+    png = (check_output(_check_writable(out.with_suffix(".png"), "picture"), overwrite=args.overwrite, inputs=inputs,
+                        what="picture") if args.png else None)
     if args.peaks < 0:
         raise UsageError("--peaks must be >= 0")
     geo = load_geometry(args.geometry)
@@ -337,8 +341,7 @@ def run(args) -> int:
     meta = dict(pat.metadata)
     meta["geometry_file"] = geo["text"]
     meta["command"] = "kinemap " + " ".join(getattr(args, "argv_used", []) or [])
-    write_frames(out, counts, angles, detector=det, metadata=meta, overwrite=args.overwrite,
-                 inputs=[args.model, args.geometry])
+    write_frames(out, counts, angles, detector=det, metadata=meta, overwrite=args.overwrite, inputs=inputs)
     step = meta["subsample_q_step"]
     _say(args, f"frames written: {out}  ({counts.shape[0]} x {counts.shape[1]} x {counts.shape[2]}; "
                f"sub-sample q-step {step['pixel']:.3g} (pixel), {step['angle_at_q_max']:.3g} (rotation) 1/angstrom)")

@@ -125,6 +125,17 @@ def bin_frames(frames, det, *, grid, axis, angles=None, orientation=None, monito
     InvalidInputError
         Frames of the wrong shape, an angle count that does not match the frames, a grid
         that is not regular, a 2-D grid without thickness.
+
+    Examples
+    --------
+    >>> import numpy as np, kinemap as km
+    >>> det = km.Detector(shape=(64, 64), pixel_size=1.0, distance=60.0,
+    ...                   beam_center=(32, 32), wavelength=1.0)
+    >>> frames = np.ones((10, 64, 64))
+    >>> grid = km.QGrid.hkl(np.eye(3) * 5.0, h=(-1, 1, 11), k=(-1, 1, 11), l=(-1, 1, 11))
+    >>> pat = km.bin_frames(frames, det, grid=grid, axis=[0, 1, 0], angles=np.arange(10.0))
+    >>> pat.intensity.shape, pat.sigma.shape
+    ((11, 11, 11), (11, 11, 11))
     """
     if not isinstance(det, Detector):
         raise InvalidInputError(f"`det` must be a kinemap.Detector, got {type(det).__name__}")
@@ -155,6 +166,8 @@ def bin_frames(frames, det, *, grid, axis, angles=None, orientation=None, monito
     check_fits(grid.size * 8 * 3, f"the accumulators of a grid of {grid.size} points")
 
     # Per-pixel geometry, fixed for the series: sub-pixel q_lab and weights ΔΩ·P·eff / s².
+    check_fits(ny * nx * s * s * 8 * 12, f"the pixel geometry of {ny}×{nx} pixels with {s}² sub-pixels",
+               hint="use fewer `pixel_subsamples`")
     offs = (np.arange(s) + 0.5) / s - 0.5
     dv, du = (x.ravel() for x in np.meshgrid(offs, offs, indexing="ij"))
     rr = np.arange(ny, dtype=np.float64)[:, None, None] + dv

@@ -112,6 +112,13 @@ def read_frames(path, *, dataset: str | None = None, angles=None, angles_dataset
         An angle count that does not match the frames, angles given twice.
     ImportError
         A fabio format without fabio installed (``pip install kinemap[images]``).
+
+    Examples
+    --------
+    >>> stack = read_frames("scan.h5", dataset="/entry/data/images",        # doctest: +SKIP
+    ...                     angles_dataset="/entry/data/omega")
+    >>> stack.n_frames, stack.shape, stack[0].dtype                          # doctest: +SKIP
+    (900, (1679, 1475), dtype('float64'))
     """
     if angles is not None and angles_dataset is not None:
         raise InvalidInputError("give the angles either as `angles` or as `angles_dataset`, not both")

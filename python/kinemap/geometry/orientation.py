@@ -136,6 +136,13 @@ def busing_levy_b(cell) -> np.ndarray:
     Notes
     -----
     Computed as the Cholesky factor of G* = A*A*ᵀ, where the rows of A* are a*, b*, c*.
+
+    Examples
+    --------
+    >>> np.round(busing_levy_b(np.diag([2.0, 4.0, 5.0])), 6)
+    array([[0.5 , 0.  , 0.  ],
+           [0.  , 0.25, 0.  ],
+           [0.  , 0.  , 0.2 ]])
     """
     recip = reciprocal_basis(as_cell(cell))
     g_star = recip @ recip.T
@@ -165,6 +172,12 @@ def orientation_from_ub(ub, cell, *, tol: float = 1e-4) -> np.ndarray:
     InvalidInputError
         When UB's reciprocal metric (UB)ᵀUB does not match the cell's (different lattice
         parameters), so that no rotation maps one onto the other.
+
+    Examples
+    --------
+    >>> u = rotation_matrix([0, 0, 1], 30.0)
+    >>> np.allclose(orientation_from_ub(u / 4.0, np.eye(3) * 4.0), u)
+    True
     """
     m = real_array(ub, "ub", shape=(3, 3))
     c = as_cell(cell)
@@ -219,6 +232,17 @@ def crossing_angles(q, *, wavelength: float, axis, orientation=None) -> np.ndarr
     With v = R0 q, Rot(â, φ)v = v∥ + v⊥ cos φ + (â × v) sin φ. The Ewald condition
     |q_lab + k ẑ| = k is ẑ·q_lab = −|q|²/2k, i.e. ``A cos φ + B sin φ = C`` with
     A = ẑ·v⊥, B = ẑ·(â × v), C = −|q|²/2k − ẑ·v∥, so ``φ = atan2(B, A) ± arccos(C/√(A²+B²))``.
+
+    Raises
+    ------
+    InvalidInputError
+        For λ ≤ 0, a zero axis, a q array not of shape (..., 3), a bad orientation.
+
+    Examples
+    --------
+    >>> # (1 0 0) of a 4 Å cubic cell at λ = 1 Å about +y: θ = arcsin(1/8) and 180° − θ
+    >>> np.round(crossing_angles([2 * np.pi / 4.0, 0, 0], wavelength=1.0, axis=[0, 1, 0]), 4)
+    array([  7.1808, 172.8192])
     """
     lam = real_number(wavelength, "wavelength", minimum=0.0, exclusive_minimum=True)
     k = 2.0 * np.pi / lam
@@ -294,6 +318,13 @@ def lorentz_factor(q_lab, *, wavelength: float, axis, tol: float = 1e-6) -> np.n
     ------
     InvalidInputError
         For a q-point farther than `tol` from the Ewald sphere (index named).
+
+    Examples
+    --------
+    >>> k = 2 * np.pi
+    >>> q = k * np.array([np.sin(0.5), 0.0, np.cos(0.5) - 1.0])   # 2θ = 0.5 rad, equatorial
+    >>> round(float(lorentz_factor(q, wavelength=1.0, axis=[0, 1, 0]) * np.sin(0.5)), 12)
+    1.0
     """
     lam = real_number(wavelength, "wavelength", minimum=0.0, exclusive_minimum=True)
     k = 2.0 * np.pi / lam

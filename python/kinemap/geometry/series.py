@@ -187,6 +187,20 @@ def expected_counts(model, det, *, orientation=None, axis=None, angles=None, wid
     ``C = Σ_sub Σ_m ΔΩ_sub P_sub I(q_sample(sub, φ_m)) / m`` with
     ``ΔΩ_sub = (s_x s_y / s²)(n̂·p̂)/r²``, ``φ_m = φ_n + ((m' + ½)/m − ½)Δφ`` and
     ``q_sample = R(φ)ᵀ k(p̂ − ẑ)``. No Lorentz factor: the rotation is integrated.
+    A model held in a file is streamed once per block of `block_points` q-points; the sums
+    use the exact engine.
+
+    Examples
+    --------
+    >>> import numpy as np, kinemap as km
+    >>> cell = np.eye(3) * 4.0
+    >>> xtal = km.Model(np.indices((8, 8, 8)).reshape(3, -1).T * 4.0, "Fe", cell=cell)
+    >>> det = km.Detector(shape=(32, 32), pixel_size=0.5, distance=100.0,
+    ...                   beam_center=(16.0, -35.2), wavelength=1.0)
+    >>> pat = km.expected_counts(xtal, det, axis=[0, 1, 0], angles=[6.7, 7.2, 7.7],
+    ...                          probe="unit")
+    >>> pat.intensity.shape
+    (3, 32, 32)
     """
     det = _as_detector(det)
     s = whole_number(pixel_subsamples, "pixel_subsamples", minimum=1, maximum=64)
@@ -301,7 +315,21 @@ def predict_reflections(cell, det, *, axis, angles, width=None, orientation=None
     dict of arrays, one entry per crossing that lands on a pixel inside a frame's range
         ``hkl`` (N, 3) int, ``angle`` (degrees), ``frame`` (index), ``row``, ``col``
         (fractional pixels), ``q_lab`` (N, 3) Å⁻¹, ``d`` (Å), ``lorentz`` (1/sin 2θ-like
-        factor of :func:`lorentz_factor`).
+        factor of :func:`lorentz_factor`), sorted by frame and angle.
+
+    Raises
+    ------
+    InvalidInputError
+        Bad cell or geometry, or more candidate reflections than memory allows.
+
+    Examples
+    --------
+    >>> import numpy as np, kinemap as km
+    >>> det = km.Detector(shape=(21, 21), pixel_size=0.5, distance=100.0,
+    ...                   beam_center=(10.0, -41.2), wavelength=1.0)
+    >>> pred = predict_reflections(np.eye(3) * 4.0, det, axis=[0, 1, 0], angles=[7.0], width=1.0)
+    >>> pred["hkl"].tolist(), pred["frame"].tolist()
+    ([[1, 0, 0]], [0])
     """
     from ..model import as_cell, reciprocal_basis
     from .orientation import crossing_angles, lorentz_factor
