@@ -107,7 +107,11 @@ def test_frames_rotation_series_end_to_end(tmp_path, crystal, main, capsys):
 
 def test_frames_still_frame_and_cautions(tmp_path, crystal, main, capsys):
     path, _ = crystal
-    still = GEOMETRY.split("[rotation]")[0]
+    mask = np.zeros((32, 32), dtype=np.uint8)
+    mask[:, 5] = 1                                        # a module gap, from a file beside the geometry
+    np.save(tmp_path / "gap.npy", mask)
+    still = GEOMETRY.split("[rotation]")[0].replace("polarization_fraction = 0.5",
+                                                     'polarization_fraction = 0.5\nmask_file = "gap.npy"')
     geo = _write(tmp_path, still)
     out = tmp_path / "still.h5"
     # (9 0 0): |q| = 14.1 > 4π/λ = 12.6; (0 0 1) at |q| = 1.57 is within 4π/λ but the offset
@@ -118,7 +122,9 @@ def test_frames_still_frame_and_cautions(tmp_path, crystal, main, capsys):
     assert rc == 0
     assert "caution: reflection (9 0 0): |q| = 14.14 1/angstrom lies beyond 4 pi/lambda = 12.57" in err
     assert "caution: reflection (0 0 2): |q| = 3.142 1/angstrom lies beyond the detector's reach" in err
-    assert km.read_frames(out).n_frames == 1
+    frames = km.read_frames(out)
+    assert frames.n_frames == 1
+    assert np.isnan(frames[0][:, 5]).all() and np.isfinite(frames[0][:, 6]).all()
 
 
 @pytest.mark.parametrize("change,code,message", [

@@ -130,7 +130,13 @@ def load_geometry(path) -> dict:
         mpath = mpath if mpath.is_absolute() else p.parent / mpath
         if not mpath.exists():
             raise FileNotFoundError(f"{where}: [detector] mask_file {str(mpath)!r} does not exist")
-        mask = np.load(mpath, allow_pickle=False) != 0
+        try:
+            mask = np.asarray(np.load(mpath, allow_pickle=False)) != 0
+        except (ValueError, OSError) as exc:
+            from .errors import ModelFileError
+
+            raise ModelFileError(f"{where}: [detector] mask_file {str(mpath)!r} is not a readable .npy array: "
+                                 f"{exc}") from None
     det = arg("detector", "(geometry)", Detector, shape=d["shape"], pixel_size=d["pixel_size_mm"],
               distance=d["distance_mm"], beam_center=d["beam_center_px"], wavelength=d["wavelength_angstrom"],
               tilt=d.get("tilt_deg", d.get("tilt_matrix")), polarization_fraction=d.get("polarization_fraction", 0.5),
