@@ -279,7 +279,7 @@ def expected_counts(model, det, *, orientation=None, axis=None, angles=None, wid
             "polarization": (f"applied: P = f[1-(p.e)^2] + (1-f)[1-(p.(z x e))^2], f = {det.polarization_fraction}, "
                              f"e = {det.polarization_direction.tolist()}") if use_pol else "not applied",
             "lorentz": "not applied: the rotation through each frame is integrated explicitly",
-            "masked_pixels": "NaN",
+            "masked_pixels": "set to NaN",
         },
         "pixel_subsamples": s, "angle_subsamples": m_sub,
         "subsample_q_step": {"pixel": float(pix_step), "angle_at_q_max": float(ang_step), "units": "1/angstrom"},
