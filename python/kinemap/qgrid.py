@@ -108,8 +108,12 @@ class QGrid:
 
     # ----- constructors -------------------------------------------------------------
     @staticmethod
-    def points(q) -> "PointGrid":
-        """Arbitrary q-points: an array of shape (..., 3) in Å⁻¹; the map has shape ``q.shape[:-1]``."""
+    def points(q, *, axes=None) -> "PointGrid":
+        """Arbitrary q-points: an array of shape (..., 3) in Å⁻¹; the map has shape ``q.shape[:-1]``.
+
+        `axes` optionally names the map's axes for plots and files: one (name, values,
+        units) per axis, e.g. ("row", rows, "pixel") for detector frames.
+        """
         a = real_array(q, "q", finite=False)
         if a.ndim < 1 or a.shape[-1] != 3:
             raise InvalidInputError(f"`q` must have shape (..., 3), got {a.shape}")
@@ -120,7 +124,17 @@ class QGrid:
             raise InvalidInputError(f"q-point {i} is not finite: {flat[i].tolist()}")
         if flat.shape[0] == 0:
             raise InvalidInputError("`q` holds no points")
-        return PointGrid(kind="points", shape=tuple(int(s) for s in a.shape[:-1]), q=flat)
+        grid = PointGrid(kind="points", shape=tuple(int(s) for s in a.shape[:-1]), q=flat)
+        if axes is not None:
+            axes = list(axes)
+            if len(axes) != grid.ndim:
+                raise InvalidInputError(f"`axes` must describe {grid.ndim} axes, got {len(axes)}")
+            for name, values, units in axes:
+                grid.axis_names.append(str(name))
+                grid.axis_labels.append(str(name))
+                grid.axis_values.append(np.asarray(values, dtype=np.float64))
+                grid.axis_units.append(str(units))
+        return grid
 
     @staticmethod
     def regular(origin, steps, shape, *, cell=None, kind: str | None = None) -> "RegularGrid":
@@ -214,6 +228,25 @@ class QGrid:
         to_q = 2.0 * np.pi * reciprocal_basis(c)
         steps = np.array([s @ to_q for s in steps_hkl]).reshape(len(steps_hkl), 3)
         return RegularGrid(kind="hkl", shape=tuple(shape), cell=c, origin=origin_hkl @ to_q, steps=steps)
+
+    # ----- detectors (built by kinemap.geometry) ---------------------------------------
+    @staticmethod
+    def detector(det, *, orientation=None) -> "QGrid":
+        """q (sample frame, Å⁻¹) of every pixel centre of one detector frame: a points grid
+        of shape (ny, nx), axes "row" and "column"; ``q_sample = Rᵀ k(p̂ − ẑ)`` for a sample
+        at orientation R (sample → lab). See :class:`kinemap.Detector`."""
+        from .geometry.series import detector_grid
+
+        return detector_grid(det, orientation=orientation)
+
+    @staticmethod
+    def rotation(det, axis, angles, *, orientation=None) -> "QGrid":
+        """q (sample frame, Å⁻¹) of every pixel of a rotation series about the lab `axis` at
+        `angles` (degrees): a points grid of shape (n_frames, ny, nx); frame n has the sample
+        at ``Rot(axis, angles[n])·orientation``. See :class:`kinemap.Detector`."""
+        from .geometry.series import rotation_grid
+
+        return rotation_grid(det, axis, angles, orientation=orientation)
 
     # ----- the interface ---------------------------------------------------------------
     @property
