@@ -69,3 +69,22 @@ def test_unwritable_and_foreign_files(tmp_path):
     junk.write_bytes(b"not hdf5 at all")
     with pytest.raises(ModelFileError, match="HDF5"):
         km.load_pattern(junk)
+
+
+def test_to_xarray_coordinates_and_units():
+    # Coordinates checked against the grid definition q = 2π(h a* + k b* + l c*) (docs/references.md,
+    # Conventions), computed here with NumPy's inverse.
+    cell = np.diag([3.0, 4.0, 5.0])
+    grid = km.QGrid.hkl(cell, h=(-1, 1, 5), k=(0, 2, 3), l=0.5)
+    pat = km.scatter(km.Model([[0.0, 0, 0], [1.5, 0, 0]], "C"), grid, probe="unit")
+    da = pat.to_xarray()
+    assert da.dims == ("h", "k") and da.shape == (5, 3)
+    np.testing.assert_allclose(da["h"].values, np.linspace(-1, 1, 5))
+    assert da["h"].attrs["units"] == "r.l.u." and da.attrs["units"] == "1"
+    qx = 2 * np.pi * np.linalg.inv(cell).T[0, 0] * da["h"].values
+    np.testing.assert_allclose(da["qx"].values[:, 0], qx)
+    np.testing.assert_allclose(da.sel(h=0.5, k=1.0).values, pat.intensity[3, 1])
+    amp = pat.to_xarray("amplitude")
+    assert amp.dtype == np.complex128
+    with pytest.raises(km.InvalidInputError, match="no sigma"):
+        pat.to_xarray("sigma")

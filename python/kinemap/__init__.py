@@ -12,11 +12,11 @@ take s = sinθ/λ = |q|/4π; A(q) = Σ_j o_j f_j(s) T_j exp(+i q·r_j); I = |A|�
 
 from ._core import __version__
 from .errors import InvalidInputError, KinemapError, ModelFileError
-from .model import Model
+from .model import AtomSource, Model
 from .pattern import Pattern, load_pattern
 from .probes import get_probe
 from .qgrid import QGrid
-from .scatter import KinematicApproximationWarning, scatter
+from .scatter import KinematicApproximationWarning, OffLatticeWarning, scatter
 from .io import open_model, write_h5md
 from .frames import FrameAverages, average_frames
 from .geometry import Detector, bin_frames, expected_counts, read_frames
@@ -24,6 +24,7 @@ from .geometry import Detector, bin_frames, expected_counts, read_frames
 __all__ = [
     "__version__",
     "Model",
+    "AtomSource",
     "QGrid",
     "Pattern",
     "scatter",
@@ -33,6 +34,7 @@ __all__ = [
     "InvalidInputError",
     "ModelFileError",
     "KinematicApproximationWarning",
+    "OffLatticeWarning",
     "open_model",
     "write_h5md",
     "average_frames",
@@ -42,3 +44,14 @@ __all__ = [
     "bin_frames",
     "read_frames",
 ]
+
+# Sub-packages with heavier imports (matplotlib, scipy) load on first use: km.plot, km.quasi.
+_LAZY = ("plot", "quasi", "io", "geometry", "frames")
+
+
+def __getattr__(name):
+    if name in _LAZY:
+        import importlib
+
+        return importlib.import_module(f".{name}", __name__)
+    raise AttributeError(f"module 'kinemap' has no attribute {name!r}")

@@ -412,6 +412,36 @@ class Model:
             m._groups, m._counts = self._groups, self._counts
         return m
 
+    def tiled(self, reps) -> "Model":
+        """A supercell: this model (a unit cell with its `cell`) repeated n1 × n2 × n3 times
+        along the cell vectors. The result keeps the cell for h, k, l and has box = P·cell.
+
+        Parameters
+        ----------
+        reps : (n1, n2, n3)
+            Repetitions along a, b, c (whole numbers >= 1).
+
+        Raises
+        ------
+        InvalidInputError
+            Without a cell, or for repetitions that are not whole numbers >= 1.
+        """
+        if self.cell is None:
+            raise InvalidInputError("`tiled` repeats a unit cell: give the model a `cell`")
+        p = supercell_matrix(reps, "reps")
+        n = np.diag(p).astype(int)
+        if np.shape(reps) != (3,) or (n < 1).any():
+            raise InvalidInputError(f"`reps` must be three whole numbers >= 1, got {reps!r}")
+        total = int(np.prod(n)) * self.n_atoms
+        check_fits(total * _BYTES_PER_ATOM, f"a supercell of {total:,} atoms")
+        shifts = np.stack(np.meshgrid(*[np.arange(k) for k in n], indexing="ij"), -1).reshape(-1, 3) @ self.cell
+        pos = (shifts[:, None, :] + self.positions[None, :, :]).reshape(-1, 3)
+        k = len(shifts)
+        u = None if self.u_aniso is None else np.tile(self.u_aniso, (k, 1, 1))
+        return Model(pos, np.tile(self.species, k), occupancy=np.tile(self.occupancy, k),
+                     b_iso=None if u is not None else np.tile(self.b_iso, k), u_aniso=u,
+                     cell=self.cell, supercell=p)
+
     def moved(self, positions) -> "Model":
         """A copy with the same atoms at new Cartesian `positions` (N, 3), Å."""
         p = _as_positions(positions)

@@ -138,6 +138,50 @@ class Pattern:
         return (f"Pattern(kind={self.grid.kind!r}, shape={self.shape}, units={self.units!r}, "
                 f"method={self.metadata.get('method')!r})")
 
+    def to_xarray(self, quantity: str = "intensity"):
+        """The map as an ``xarray.DataArray`` with named coordinates and units (needs xarray:
+        ``pip install kinemap[xarray]``).
+
+        Regular grids get one dimension coordinate per axis (h, k, l in r.l.u. on hkl grids,
+        the coordinate along each edge through q = 0 in Å⁻¹ otherwise) plus ``qx, qy, qz``
+        as coordinates over all dimensions; arbitrary points get ``qx, qy, qz`` over index
+        dimensions. `quantity` is "intensity", "amplitude" or "sigma".
+
+        Raises
+        ------
+        ImportError
+            Without xarray, naming the extra to install.
+        InvalidInputError
+            For a quantity the map does not have.
+        """
+        try:
+            import xarray as xr
+        except ImportError:
+            raise ImportError("Pattern.to_xarray needs xarray: pip install kinemap[xarray]") from None
+        data = {"intensity": self.intensity, "amplitude": self.amplitude, "sigma": self.sigma}.get(quantity, "?")
+        if isinstance(data, str):
+            raise InvalidInputError(f"`quantity` must be 'intensity', 'amplitude' or 'sigma', got {quantity!r}")
+        if data is None:
+            raise InvalidInputError(f"this map has no {quantity}")
+        g = self.grid
+        if g.axis_names:
+            dims = list(g.axis_names)
+            coords = {n: (n, np.asarray(v), {"units": u, "long_name": lab})
+                      for n, v, u, lab in zip(g.axis_names, g.axis_values, g.axis_units, g.axis_labels)}
+        else:
+            dims = [f"index_{i}" for i in range(g.ndim)]
+            coords = {}
+        q = g.q_vectors().reshape(tuple(g.shape) + (3,))
+        for i, name in enumerate(("qx", "qy", "qz")):
+            coords[name] = (dims, q[..., i], {"units": "1/angstrom"})
+        sq = f"{self.units}^2" if self.units not in ("1", "") else "1"
+        units = {"intensity": sq, "sigma": sq, "amplitude": self.units}[quantity]
+        attrs = {"units": units, "long_name": quantity}
+        for key in ("method", "average", "split"):
+            if key in self.metadata:
+                attrs[key] = str(self.metadata[key])
+        return xr.DataArray(data, dims=dims, coords=coords, name=quantity, attrs=attrs)
+
     def save(self, path, *, keep_amplitude: bool = True, overwrite: bool = False) -> Path:
         """Write the map to a NeXus/HDF5 file (atomically). Returns the path.
 

@@ -75,12 +75,17 @@ def _check(name, value, allowed):
 
 #: Fraction of the positive values drawn below the lower end of an automatic log scale.
 LOG_FLOOR_QUANTILE = 0.005
+#: An automatic log scale never reaches below this fraction of the maximum: values there are
+#: rounding noise of float64 sums (e.g. between the Bragg peaks of a perfect crystal), while
+#: real diffuse scattering of even 10⁸ atoms lies above it.
+LOG_FLOOR_RELATIVE = 1e-12
 
 
 def _norm(values: np.ndarray, scale: str, vmin, vmax):
     """Colour limits from the data's own dynamic range: a log scale runs from the 0.5 %
-    quantile of the positive values to the maximum (so weak diffuse scattering beside strong
-    Bragg peaks keeps its colours), a linear one over the finite values."""
+    quantile of the positive values (but not below 1e-12 of the maximum, where float64
+    rounding lives) to the maximum, so weak diffuse scattering beside strong Bragg peaks keeps
+    its colours; a linear scale spans the finite values."""
     from matplotlib.colors import LogNorm, Normalize
 
     finite = values[np.isfinite(values)]
@@ -91,7 +96,8 @@ def _norm(values: np.ndarray, scale: str, vmin, vmax):
         if pos.size == 0:
             raise InvalidInputError("a log scale needs positive values, but the map has none; use scale='linear'")
         hi = float(pos.max()) if vmax is None else float(vmax)
-        lo = float(np.quantile(pos, LOG_FLOOR_QUANTILE)) if vmin is None else float(vmin)
+        lo = max(float(np.quantile(pos, LOG_FLOOR_QUANTILE)), LOG_FLOOR_RELATIVE * hi) if vmin is None \
+            else float(vmin)
         if vmin is None and lo >= hi:
             lo = hi / 10.0
         if not (0 < lo < hi):
