@@ -118,13 +118,19 @@ def save_parts(parts: dict[str, Pattern], prefix, extra: dict | None = None, suf
 # sources derived from another source
 # --------------------------------------------------------------------------------------
 class _Mapped(AtomSourceBase):
-    """Another source's atoms with positions changed chunk by chunk."""
+    """Another source's atoms with positions changed chunk by chunk (picklable, so that the
+    tasks of a cluster run can read it themselves)."""
 
-    def __init__(self, source, move, note: str):
-        self._src, self._move, self._note = source, move, note
+    note = ""
+
+    def __init__(self, source):
+        self._src = source
         self.n_atoms = source.n_atoms
         self.box = source.box
         self.cell = source.cell
+
+    def _move(self, p: np.ndarray) -> np.ndarray:
+        raise NotImplementedError
 
     def species_labels(self) -> list[str]:
         return self._src.species_labels()
@@ -135,24 +141,36 @@ class _Mapped(AtomSourceBase):
 
     def describe(self) -> dict:
         d = dict(self._src.describe())
-        d["positions"] = self._note
+        d["positions"] = self.note
         return d
 
 
-def _folded(source, cell: np.ndarray):
+class _Folded(_Mapped):
     """The atoms folded into the parent cell (fractional coordinates reduced into [0, 1))."""
-    inv = np.linalg.inv(cell)
 
-    def fold(p):
-        f = p @ inv
+    note = "folded into the parent cell"
+
+    def __init__(self, source, cell: np.ndarray):
+        super().__init__(source)
+        self._fold_cell = np.asarray(cell, dtype=np.float64)
+        self._inv = np.linalg.inv(self._fold_cell)
+
+    def _move(self, p):
+        f = p @ self._inv
         f -= np.floor(f)
-        return f @ cell
-
-    return _Mapped(source, fold, "folded into the parent cell")
+        return f @ self._fold_cell
 
 
-def _shifted(source, shift: np.ndarray):
-    return _Mapped(source, lambda p: p - shift, f"shifted by {np.round(-shift, 6).tolist()} angstrom")
+class _Shifted(_Mapped):
+    """The atoms shifted by −`shift` (drift removal)."""
+
+    def __init__(self, source, shift: np.ndarray):
+        super().__init__(source)
+        self._shift = np.asarray(shift, dtype=np.float64)
+        self.note = f"shifted by {np.round(-self._shift, 6).tolist()} angstrom"
+
+    def _move(self, p):
+        return p - self._shift
 
 
 def _min_image(d: np.ndarray, box: np.ndarray | None) -> np.ndarray:
@@ -253,7 +271,8 @@ def _integer_hkl(grid: QGrid, cell: np.ndarray, tol: float = 1e-6) -> np.ndarray
 def average_frames(model, grid: QGrid, *, frames=None, split: str = "frames", probe="xray", method: str = "auto",
                    tol: float = 1e-6, threads: int | None = None, progress=False,
                    chunk_atoms: int = DEFAULT_CHUNK_ATOMS, remove_drift: bool = True,
-                   open_options: dict | None = None, **probe_options) -> FrameAverages:
+                   open_options: dict | None = None, cluster=None, checkpoint=None,
+                   block_points: int | None = None, **probe_options) -> FrameAverages:
     """Total, Bragg and diffuse scattering of a model, split over frames or over cells.
 
     Parameters
@@ -279,6 +298,9 @@ def average_frames(model, grid: QGrid, *, frames=None, split: str = "frames", pr
         Remove the drift of the centre of the atoms relative to the first frame.
     open_options : dict, optional
         Keyword arguments for :func:`kinemap.open_model` when `model` is a path.
+    cluster, checkpoint, block_points
+        As in :func:`kinemap.scatter`: every frame runs as (atom chunk × q-block) tasks on the
+        cluster; the checkpoint folder keeps one sub-folder per frame (and part).
 
     Returns
     -------
@@ -329,6 +351,10 @@ def average_frames(model, grid: QGrid, *, frames=None, split: str = "frames", pr
         cautions.append(text)
 
     check_commensurate(sources[0], grid)
+    if (cluster is not None or checkpoint is not None) and method == "gridded":
+        raise InvalidInputError("cluster and checkpointed runs use the exact sum; give method='exact' or 'auto'")
+    from ._engine.distributed import connect
+
     sum_a = np.zeros(grid.shape, dtype=np.complex128)
     sum_i = np.zeros(grid.shape, dtype=np.float64)
     sum_f = np.zeros(grid.shape, dtype=np.complex128) if split == "cells" else None
@@ -336,7 +362,7 @@ def average_frames(model, grid: QGrid, *, frames=None, split: str = "frames", pr
     per_frame = 2 if split == "cells" else 1
     bar = Progress(progress if progress is True else False, 0, desc=f"frame 1/{n}")
     callback = progress if callable(progress) and progress is not True else None
-    try:
+    with connect(cluster) as client, bar:
         for k, src in enumerate(sources):
             probe_obj.check_labels(src.species_labels())
             if src.n_atoms == 0:
@@ -348,7 +374,7 @@ def average_frames(model, grid: QGrid, *, frames=None, split: str = "frames", pr
             elif remove_drift and k > 0:
                 shift = _drift(sources[0], src, chunk_atoms)
                 if np.any(shift):
-                    src = _shifted(src, shift)
+                    src = _Shifted(src, shift)
             drifts.append(shift.tolist())
             g_t = _frame_grid(grid, src)
             bar.describe(f"frame {k + 1}/{n}")
@@ -360,19 +386,21 @@ def average_frames(model, grid: QGrid, *, frames=None, split: str = "frames", pr
                     bar.bar.n = (k * per_frame) * total + done
                     bar.bar.refresh()
 
-            opts = dict(method=method, tol=tol, threads=threads, progress=inner, chunk_atoms=chunk_atoms)
-            a, used = amplitudes(src, g_t, probe_obj, **opts)
+            def run_opts(k, part, inner=inner):
+                where = None if checkpoint is None else Path(checkpoint) / f"frame_{idx[k]}_{part}"
+                return dict(method=method, tol=tol, threads=threads, progress=inner, chunk_atoms=chunk_atoms,
+                            cluster=client, checkpoint=where, block_points=block_points)
+
+            a, used = amplitudes(src, g_t, probe_obj, **run_opts(k, "atoms"))
             methods.append(used)
             sum_a += a
             sum_i += a.real * a.real + a.imag * a.imag
             if split == "cells":
-                f_bar, _ = amplitudes(_folded(src, np.asarray(src.cell)), g_t, probe_obj, **opts)
+                f_bar, _ = amplitudes(_Folded(src, np.asarray(src.cell)), g_t, probe_obj, **run_opts(k, "folded"))
                 sum_f += f_bar / len(translations)
             descriptions.append(src.describe())
             if callback is not None:
                 callback(k + 1, n)
-    finally:
-        bar.close()
 
     total = sum_i / n
     mean_a = sum_a / n

@@ -77,7 +77,7 @@ def check_commensurate(source, grid: QGrid, *, stacklevel: int = 3) -> bool:
 
 def scatter(model, grid, *, probe="xray", method: str = "auto", tol: float = 1e-6,
             threads: int | None = None, progress=False, chunk_atoms: int = DEFAULT_CHUNK_ATOMS,
-            **probe_options) -> Pattern:
+            cluster=None, checkpoint=None, block_points: int | None = None, **probe_options) -> Pattern:
     """Kinematic scattering amplitudes and intensities of a model on a set of q-points.
 
     Parameters
@@ -107,6 +107,17 @@ def scatter(model, grid, *, probe="xray", method: str = "auto", tol: float = 1e-
     chunk_atoms : int
         Atoms per streamed chunk; bounds working memory, does not change results beyond
         rounding.
+    cluster : None, "local", str or dask.distributed.Client
+        Where to run: None (this process), "local" (a Dask cluster of worker processes on this
+        machine), the address of a running Dask scheduler, or a Client. Needs the extra
+        ``kinemap[cluster]``; runs the exact sum as (atom chunk × q-block) tasks whose sums
+        equal the in-process ones (see :mod:`kinemap._engine.distributed`). Model files must
+        be reachable under the same path from every worker (a shared file system).
+    checkpoint : str or path-like, optional
+        A folder that keeps finished q-blocks: a stopped run started again with the same
+        inputs reuses them (``metadata["run"]["blocks_reused"]``); other inputs are refused.
+    block_points : int, optional
+        q-points per block of a cluster or checkpointed run (default 65536).
 
     Returns
     -------
@@ -157,9 +168,16 @@ def scatter(model, grid, *, probe="xray", method: str = "auto", tol: float = 1e-
     check_fits(grid.size * (16 + 16 + 8), f"a map of {grid.size:,} q-points (shape {grid.shape})",
                hint="use a smaller grid (fewer points) or split it into pieces")
     check_commensurate(source, grid)
+    run: dict = {}
+    if cluster is not None or checkpoint is not None:
+        if method == "gridded":
+            raise InvalidInputError("cluster and checkpointed runs use the exact sum; give method='exact' or 'auto'")
+        if block_points is not None:
+            block_points = whole_number(block_points, "block_points", minimum=1)
 
     amplitude, used = amplitudes(source, grid, probe, method=method, tol=tol, threads=threads,
-                                 progress=progress, chunk_atoms=chunk_atoms)
+                                 progress=progress, chunk_atoms=chunk_atoms, cluster=cluster,
+                                 checkpoint=checkpoint, block_points=block_points, run=run)
     if not np.isfinite(amplitude).all():  # never hand back a NaN map silently
         raise InvalidInputError("the computed map has non-finite values; check the probe tables and inputs")
 
@@ -175,6 +193,7 @@ def scatter(model, grid, *, probe="xray", method: str = "auto", tol: float = 1e-
         "model": source.describe(),
         "grid": grid.describe(),
         "threads": threads if threads is not None else 0,
+        "run": run or {"cluster": "this process"},
         "created": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
         "kinemap_version": _core.__version__,
         "conventions": "A(q) = sum_j o_j f_j(s) T_j exp(+i q.r_j); q in 1/angstrom; s = |q|/(4 pi)",

@@ -235,6 +235,21 @@ def add_compute_options(p):
                    help="atoms read and summed per chunk (bounds memory; default 1048576)")
 
 
+def add_run_options(p):
+    g = p.add_argument_group("running beyond one process")
+    g.add_argument("--cluster", metavar="local|ADDRESS",
+                   help="run the exact sum as tasks on a Dask cluster: 'local' (worker processes on this machine) or "
+                        "a scheduler address such as tcp://host:8786 (needs pip install kinemap[cluster]; model files "
+                        "must be reachable under the same path from every worker)")
+    g.add_argument("--checkpoint", metavar="FOLDER",
+                   help="keep finished q-blocks in FOLDER; the same command run again resumes from them")
+    g.add_argument("--block-points", type=int, metavar="N", help="q-points per task block (default 65536)")
+
+
+def run_options(args) -> dict:
+    return {"cluster": args.cluster, "checkpoint": args.checkpoint, "block_points": args.block_points}
+
+
 def add_common(p):
     p.add_argument("--threads", type=int, default=None, metavar="N",
                    help="worker threads (default: KINEMAP_NUM_THREADS or all cores)")

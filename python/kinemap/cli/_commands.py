@@ -36,7 +36,11 @@ def cmd_map(args) -> int:
     A.say(args, f"grid: {grid.kind} {tuple(grid.shape)} = {grid.size} q-points; probe {args.probe}")
     with A.Cautions():
         pat = scatter(source, grid, probe=args.probe, method=args.method, tol=args.tol, threads=args.threads,
-                      progress=not args.no_progress, chunk_atoms=args.chunk_atoms, **probe_opts)
+                      progress=not args.no_progress, chunk_atoms=args.chunk_atoms, **A.run_options(args),
+                      **probe_opts)
+    run = pat.metadata.get("run", {})
+    if run.get("blocks_reused"):
+        A.say(args, f"checkpoint: reused {run['blocks_reused']} of {run['blocks']} finished q-blocks")
     extra = A.provenance(args, pat, pat.metadata.get("model", {}), [source.frame])
     save_pattern(pat, out, keep_amplitude=not args.no_amplitude, extra=extra, overwrite=args.overwrite,
                  inputs=inputs)
@@ -72,7 +76,7 @@ def cmd_average(args) -> int:
         avg = average_frames(source, grid, frames=args.frames, split=args.split, probe=args.probe,
                              method=args.method, tol=args.tol, threads=args.threads,
                              progress=not args.no_progress, chunk_atoms=args.chunk_atoms,
-                             remove_drift=not args.keep_drift, **probe_opts)
+                             remove_drift=not args.keep_drift, **A.run_options(args), **probe_opts)
     extra = A.provenance(args, avg.total, avg.total.metadata.get("model", {}), avg.frames)
     paths = avg.save(prefix, extra=extra, overwrite=args.overwrite, inputs=inputs)
     shown = avg.frames if len(avg.frames) <= 12 else str(avg.frames[:12])[:-1] + ", ...]"
@@ -214,6 +218,7 @@ def add_parsers(sub, fmt) -> None:
     A.add_model_options(p, "one")
     A.add_grid_options(p)
     A.add_compute_options(p)
+    A.add_run_options(p)
     o = p.add_argument_group("output")
     o.add_argument("-o", "--output", required=True, metavar="MAP.h5", help="map file to write (NeXus NXdata in HDF5)")
     o.add_argument("--no-amplitude", action="store_true", help="store the intensity only (half the file size)")
@@ -233,6 +238,7 @@ def add_parsers(sub, fmt) -> None:
     A.add_model_options(p, "many")
     A.add_grid_options(p)
     A.add_compute_options(p)
+    A.add_run_options(p)
     s = p.add_argument_group("split")
     s.add_argument("--split", default="frames", choices=["frames", "cells"],
                    help="average structure over frames (default) or over the parent cells of the box (needs "
