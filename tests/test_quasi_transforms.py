@@ -31,15 +31,14 @@ import cmath
 import math
 from itertools import combinations, product
 
+import kinemap as km
+import kinemap.quasi as kq
 import mpmath
 import numpy as np
 import pytest
-from scipy.spatial import ConvexHull, QhullError
-
-import kinemap as km
-import kinemap.quasi as kq
 from kinemap.model import AtomSource
 from kinemap.quasi.windows import PolygonWindow, PolyhedronWindow, exp_divided_differences
+from scipy.spatial import ConvexHull, QhullError
 
 TAU = (1 + math.sqrt(5)) / 2
 
@@ -214,9 +213,9 @@ def test_octagon_transform_against_quadrature_and_divergence_theorem():
         return min(ys), max(ys)
 
     for kk in k:
-        re = integrate.dblquad(lambda y, x: math.cos(2 * math.pi * (kk[0] * x + kk[1] * y)), xs[0], xs[-1],
+        re = integrate.dblquad(lambda y, x, kk=kk: math.cos(2 * math.pi * (kk[0] * x + kk[1] * y)), xs[0], xs[-1],
                                lambda x: y_range(x)[0], lambda x: y_range(x)[1], epsabs=1e-11)[0]
-        im = integrate.dblquad(lambda y, x: -math.sin(2 * math.pi * (kk[0] * x + kk[1] * y)), xs[0], xs[-1],
+        im = integrate.dblquad(lambda y, x, kk=kk: -math.sin(2 * math.pi * (kk[0] * x + kk[1] * y)), xs[0], xs[-1],
                                lambda x: y_range(x)[0], lambda x: y_range(x)[1], epsabs=1e-11)[0]
         assert w.integral(kk[None, :])[0] == pytest.approx(complex(re, im), abs=1e-8)
     # divergence theorem (sum over edges) gives the same numbers

@@ -35,8 +35,17 @@ drawing (peaks).
 """
 
 from .chains import ChainScheme, chain_transform, fibonacci, metallic_chain
-from .decorate import (coordination, count_tiles, neighbour_signature, phason_debye_waller, phason_jitter_points,
-                       phonon_displacements, species_by_coordination, species_by_perp, tile_volumes)
+from .decorate import (
+    coordination,
+    count_tiles,
+    neighbour_signature,
+    phason_debye_waller,
+    phason_jitter_points,
+    phonon_displacements,
+    species_by_coordination,
+    species_by_perp,
+    tile_volumes,
+)
 from .drawing import plot_indexed
 from .find import Peaks, find_peaks
 from .index import index_peaks, kperp_bound
@@ -46,8 +55,7 @@ from .patch import Patch
 from .points import ModuleVectors, PointSet
 from .scheme import CutProjectScheme
 from .tilings import SILVER, TAU, fibonacci_ratio, icosahedral, icosahedral_approximant, octagonal, pell_ratio, penrose
-from .windows import (IntervalWindow, PolygonWindow, PolyhedronWindow, SlicedWindow, Window,
-                      exp_divided_differences)
+from .windows import IntervalWindow, PolygonWindow, PolyhedronWindow, SlicedWindow, Window, exp_divided_differences
 
 __all__ = [
     "CutProjectScheme", "PointSet", "ModuleVectors", "Patch", "ChainScheme",

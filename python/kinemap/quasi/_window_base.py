@@ -50,7 +50,7 @@ class Window:
     def integral(self, k_perp) -> np.ndarray:  # pragma: no cover - abstract
         raise NotImplementedError
 
-    def translated(self, shift) -> "Window":  # pragma: no cover - abstract
+    def translated(self, shift) -> Window:  # pragma: no cover - abstract
         raise NotImplementedError
 
     def halfspaces(self) -> tuple[np.ndarray, np.ndarray] | None:
@@ -124,7 +124,8 @@ def convex_hull_2d(points) -> np.ndarray:
     def cross(o, a, b):
         return (a[0] - o[0]) * (b[1] - o[1]) - (a[1] - o[1]) * (b[0] - o[0])
 
-    lower, upper = [], []
+    lower: list[np.ndarray] = []
+    upper: list[np.ndarray] = []
     for pt in p:
         while len(lower) >= 2 and cross(lower[-2], lower[-1], pt) <= 1e-12:
             lower.pop()

@@ -11,9 +11,10 @@ under the new map. The functions here are reached through the methods of
 
 from __future__ import annotations
 
+from collections.abc import Iterator
 from fractions import Fraction
 from itertools import product
-from typing import TYPE_CHECKING, Iterator
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -35,7 +36,7 @@ def _as_fraction(r) -> Fraction:
     return Fraction(r)
 
 
-def make_approximant(scheme: "CutProjectScheme", ratio, name: str | None = None) -> "CutProjectScheme":
+def make_approximant(scheme: CutProjectScheme, ratio, name: str | None = None) -> CutProjectScheme:
     """The approximant of `scheme` with ξ replaced by `ratio` (see
     :meth:`CutProjectScheme.approximant`)."""
     if scheme.rational_form is None:
@@ -71,14 +72,14 @@ def make_approximant(scheme: "CutProjectScheme", ratio, name: str | None = None)
     return scheme._replace(name=label, internal=internal, window=window, periods=periods, rational_form=None)
 
 
-def period_cell(scheme: "CutProjectScheme") -> np.ndarray:
+def period_cell(scheme: CutProjectScheme) -> np.ndarray:
     """Period vectors (rows, Å) of an approximant, as a (d, d) array."""
     if scheme.periods is None:
         raise InvalidInputError(f"scheme {scheme.name!r} is not periodic (no periods): make an approximant first")
     return (scheme.parallel @ scheme.periods.T).T
 
 
-def cell3(scheme: "CutProjectScheme", pad: float = 1.0) -> np.ndarray:
+def cell3(scheme: CutProjectScheme, pad: float = 1.0) -> np.ndarray:
     """The 3x3 cell (rows a, b, c in Å) of an approximant; the directions a chain or a planar
     set does not fill get a vector of length `pad` (Å) along the unused axes."""
     pad = real_number(pad, "pad", minimum=0.0, exclusive_minimum=True)
@@ -87,7 +88,7 @@ def cell3(scheme: "CutProjectScheme", pad: float = 1.0) -> np.ndarray:
     return c
 
 
-def unit_cell(scheme: "CutProjectScheme", with_indices: bool = True) -> PointSet:
+def unit_cell(scheme: CutProjectScheme, with_indices: bool = True) -> PointSet:
     """The points of one period cell (fractional coordinates in [0, 1)^d), found by
     enumerating a covering ball and keeping the points inside the cell."""
     cell = period_cell(scheme)
@@ -101,7 +102,7 @@ def unit_cell(scheme: "CutProjectScheme", with_indices: bool = True) -> PointSet
     return ps.subset(inside, with_indices=with_indices)
 
 
-def check_repeats(scheme: "CutProjectScheme", repeats, name: str = "repeats") -> tuple[int, ...]:
+def check_repeats(scheme: CutProjectScheme, repeats, name: str = "repeats") -> tuple[int, ...]:
     """`repeats` as d whole numbers ≥ 1 (one per period)."""
     if isinstance(repeats, (str, bytes)) or np.ndim(repeats) > 1:
         reps: list = [repeats]
@@ -112,7 +113,7 @@ def check_repeats(scheme: "CutProjectScheme", repeats, name: str = "repeats") ->
     return tuple(whole_number(r, name, minimum=1) for r in reps)
 
 
-def iter_cells(scheme: "CutProjectScheme", repeats, cell_points: PointSet | None = None) -> Iterator[PointSet]:
+def iter_cells(scheme: CutProjectScheme, repeats, cell_points: PointSet | None = None) -> Iterator[PointSet]:
     """The translates of the unit cell by n_1 t_1 + … + n_d t_d, 0 ≤ n_i < repeats[i], one
     :class:`PointSet` (with indices) per cell."""
     reps = check_repeats(scheme, repeats)
@@ -124,7 +125,7 @@ def iter_cells(scheme: "CutProjectScheme", repeats, cell_points: PointSet | None
         yield PointSet(x, y, n, scheme)
 
 
-def approximant_block(scheme: "CutProjectScheme", repeats) -> PointSet:
+def approximant_block(scheme: CutProjectScheme, repeats) -> PointSet:
     """`repeats` (d whole numbers) copies of the unit cell, with indices."""
     return PointSet.concatenate(iter_cells(scheme, repeats), scheme=scheme)
 

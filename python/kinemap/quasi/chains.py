@@ -33,8 +33,7 @@ import numpy as np
 from .._shared.memory import check_fits
 from .._shared.validate import real_array, real_number, whole_number
 from ..errors import InvalidInputError
-from ._precise import (dd_floor, dd_frac, dd_mul, inv_two_pi_dd, metallic_mean_decimal, split_decimal,
-                       two_prod, two_sum)
+from ._precise import dd_floor, dd_frac, dd_mul, inv_two_pi_dd, metallic_mean_decimal, split_decimal, two_prod, two_sum
 from .points import STREAM_HINT, PointSet, embed3
 from .scheme import CutProjectScheme
 from .windows import IntervalWindow
@@ -269,7 +268,8 @@ def chain_transform(chain: ChainScheme, q, generation: int) -> np.ndarray:
     is the rounding of the recursion itself, ~n·1e-16 relative.
     """
     if not isinstance(chain, ChainScheme):
-        raise InvalidInputError(f"`chain` must be a ChainScheme (fibonacci()/metallic_chain()), got {type(chain).__name__}")
+        raise InvalidInputError(f"`chain` must be a ChainScheme (fibonacci()/metallic_chain()), "
+                                f"got {type(chain).__name__}")
     qa = real_array(q, "q")
     if qa.ndim == 2 and qa.shape[1] == 3:
         qa = qa[:, 0]

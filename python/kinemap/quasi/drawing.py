@@ -25,7 +25,7 @@ def _relative(values: np.ndarray) -> np.ndarray:
     return values / top if top > 0 else np.zeros_like(values, dtype=np.float64)
 
 
-def _draw_line(ax, result: "IndexingResult", rel: np.ndarray, pattern: Pattern | None, annotate: int,
+def _draw_line(ax, result: IndexingResult, rel: np.ndarray, pattern: Pattern | None, annotate: int,
                log: bool) -> None:
     """A 1-D picture: the map (grey), the peaks' relative intensities and their indices."""
     if pattern is not None:
@@ -48,7 +48,7 @@ def _draw_line(ax, result: "IndexingResult", rel: np.ndarray, pattern: Pattern |
             shown += 1
 
 
-def _draw_plane(ax, result: "IndexingResult", rel: np.ndarray, pattern: Pattern | None, annotate: int,
+def _draw_plane(ax, result: IndexingResult, rel: np.ndarray, pattern: Pattern | None, annotate: int,
                 log: bool) -> None:
     """A 2-D picture in the (q_x, q_y) plane: the map (grey), circles sized by intensity, indices."""
     if pattern is not None and pattern.grid.kind in ("plane", "hkl") and pattern.intensity.ndim == 2:
@@ -74,7 +74,7 @@ def _draw_plane(ax, result: "IndexingResult", rel: np.ndarray, pattern: Pattern 
     ax.set_ylabel("q_y (1/Å)")
 
 
-def plot_indexed(result: "IndexingResult", path, *, pattern: Pattern | None = None, annotate: int = 30,
+def plot_indexed(result: IndexingResult, path, *, pattern: Pattern | None = None, annotate: int = 30,
                  log: bool = True, overwrite: bool = False) -> Path:
     """Write a PNG of the indexed peaks with their indices.
 

@@ -57,10 +57,12 @@ def local_maxima(a: np.ndarray, r: int) -> np.ndarray:
     return (a >= around) & (a > before)
 
 
-def _q_at(grid: QGrid | None, qarr: np.ndarray | None, shape, pix: np.ndarray) -> np.ndarray:
-    """q at fractional pixel coordinates: regular grids exactly, q-arrays by interpolation."""
-    if grid is not None and grid.is_regular:
-        return grid.origin + pix @ grid.steps
+def _q_at(regular: tuple[np.ndarray, np.ndarray] | None, qarr: np.ndarray | None, shape,
+          pix: np.ndarray) -> np.ndarray:
+    """q at fractional pixel coordinates: regular grids (origin, steps) exactly, q-arrays by
+    multilinear interpolation."""
+    if regular is not None:
+        return regular[0] + pix @ regular[1]
     assert qarr is not None
     base = np.floor(pix).astype(np.int64)
     frac = pix - base
@@ -175,7 +177,8 @@ def find_peaks(data, grid: QGrid | None = None, q=None, *, threshold: float = 1e
     max_peaks = None if max_peaks is None else whole_number(max_peaks, "max_peaks", minimum=1)
     min_q = real_number(min_q, "min_q", minimum=0.0)
     exclude_border = flag(exclude_border, "exclude_border")
-    qarr = None
+    regular = None  # (origin, steps) of a regular grid: exact sub-pixel q
+    qarr: np.ndarray | None = None  # q of every pixel, made only when needed for regular grids
     if q is not None:
         qarr = real_array(q, "q", shape=inten.shape + (3,))
     elif grid is not None:
@@ -183,18 +186,21 @@ def find_peaks(data, grid: QGrid | None = None, q=None, *, threshold: float = 1e
             raise InvalidInputError(f"`grid` must be a kinemap.QGrid, got {type(grid).__name__}")
         if tuple(grid.shape) != inten.shape:
             raise InvalidInputError(f"grid shape {tuple(grid.shape)} != map shape {inten.shape}")
-        if not grid.is_regular:
-            qarr = grid.q.reshape(inten.shape + (3,))
-        elif grid.steps.shape[0] != inten.ndim:
-            raise InvalidInputError("the grid's number of axes does not match the map")
+        if grid.is_regular:
+            if grid.steps is None or grid.steps.shape[0] != inten.ndim:
+                raise InvalidInputError("the grid's number of axes does not match the map")
+            regular = (np.asarray(grid.origin, dtype=np.float64), grid.steps)
+            if min_q > 0:
+                qarr = grid.q_vectors().reshape(inten.shape + (3,))
+        else:
+            qarr = grid.q_vectors().reshape(inten.shape + (3,))
     else:
         raise InvalidInputError("give a Pattern, or the map with `grid` or `q`")
     region = inten
-    if min_q > 0:
+    if qarr is not None and min_q > 0:
         # the threshold is relative to the strongest value outside |q| < min_q (the forward
         # beam would otherwise set it)
-        qall = qarr.reshape(-1, 3) if qarr is not None else grid.q_vectors()  # type: ignore[union-attr]
-        far = (np.linalg.norm(qall, axis=1) >= min_q).reshape(inten.shape)
+        far = np.linalg.norm(qarr, axis=-1) >= min_q
         region = np.where(far, inten, -np.inf)
     top = float(region.max()) if inten.size else 0.0
     if not np.isfinite(top) or top <= 0:
@@ -209,7 +215,7 @@ def find_peaks(data, grid: QGrid | None = None, q=None, *, threshold: float = 1e
                 edge[ax] = n_ax - 1
                 mask[tuple(edge)] = False
     pix, height = _refine(inten, np.argwhere(mask))
-    qv = _q_at(grid, qarr, inten.shape, pix)
+    qv = _q_at(regular, qarr, inten.shape, pix)
     keep = np.linalg.norm(qv, axis=1) >= min_q
     qv, height, pix = qv[keep], height[keep], pix[keep]
     order = np.argsort(-height, kind="stable")

@@ -75,11 +75,11 @@ def inflation_check(result: IndexingResult, power: int | None = None) -> Inflati
         return InflationCheck(lam, p, [], np.zeros(0), np.zeros(0), np.zeros(0))
     kpar = sch.module(result.indices[ok]).k_par
     pairs, pr, ir, pp = [], [], [], []
-    for a, i in enumerate(ok):
+    for i in ok:
         target = sch.module((s_mat @ result.indices[i])[None, :]).k_par[0]
         dist = np.linalg.norm(kpar - target, axis=1)
         b = int(np.argmin(dist))
-        if dist[b] < 1e-9 * max(1.0, np.linalg.norm(target)):
+        if dist[b] < 1e-9 * max(1.0, float(np.linalg.norm(target))):
             j = ok[b]
             pairs.append((int(i), int(j)))
             pr.append(np.linalg.norm(result.q_obs[j]) / np.linalg.norm(result.q_obs[i]))

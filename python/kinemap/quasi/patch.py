@@ -16,8 +16,8 @@ Two kinds of patch:
 
 from __future__ import annotations
 
-from collections.abc import Mapping
-from typing import TYPE_CHECKING, Callable, Iterator
+from collections.abc import Callable, Iterator, Mapping
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -91,7 +91,7 @@ class Patch(AtomSourceBase):
     their concatenation does not depend on `chunk_atoms`.
     """
 
-    def __init__(self, scheme: "CutProjectScheme", radius=None, *, center=None, cells=None,
+    def __init__(self, scheme: CutProjectScheme, radius=None, *, center=None, cells=None,
                  species: str | Callable = "A", occupancy=None, b_iso=None, pad: float = 1.0):
         self.scheme = scheme
         if (radius is None) == (cells is None):
@@ -131,8 +131,8 @@ class Patch(AtomSourceBase):
             self._check_keys([species])
 
     # ------------------------------------------------------------------ protocol
-    @property  # type: ignore[override]
-    def n_atoms(self) -> int:
+    @property
+    def n_atoms(self) -> int:  # type: ignore[override]
         """Number of atoms (round patches: counted by one generation pass, then kept)."""
         if self._count is None:
             if self.cells is not None:
@@ -238,8 +238,9 @@ class Patch(AtomSourceBase):
         found: set[str] = set()
         for ps in self._iter_points(1 << 18):
             count += len(ps)
-            if not isinstance(self.species, str):
-                found.update(str(v) for v in np.unique(self._labels_of(ps).astype(str)))
+            chunk_labels = self._labels_of(ps)
+            if not isinstance(chunk_labels, str):
+                found.update(str(v) for v in np.unique(chunk_labels.astype(str)))
         self._count = count
         labels = [self.species] if isinstance(self.species, str) else sorted(found)
         self._check_keys(labels)

@@ -51,7 +51,7 @@ class PointSet:
     positions: np.ndarray
     perp: np.ndarray
     indices: np.ndarray | None
-    scheme: "CutProjectScheme"
+    scheme: CutProjectScheme
     info: dict = field(default_factory=dict)
 
     def __len__(self) -> int:
@@ -61,15 +61,15 @@ class PointSet:
     def n_points(self) -> int:
         return len(self.positions)
 
-    def subset(self, index, *, with_indices: bool = True) -> "PointSet":
+    def subset(self, index, *, with_indices: bool = True) -> PointSet:
         """Points selected by a mask, slice or index array (without the lattice coordinates
         when `with_indices` is False)."""
-        keep = with_indices and self.indices is not None
-        return PointSet(self.positions[index], self.perp[index], self.indices[index] if keep else None,
+        idx = self.indices if with_indices else None
+        return PointSet(self.positions[index], self.perp[index], None if idx is None else idx[index],
                         self.scheme, dict(self.info))
 
     @classmethod
-    def concatenate(cls, parts, scheme: "CutProjectScheme | None" = None) -> "PointSet":
+    def concatenate(cls, parts, scheme: CutProjectScheme | None = None) -> PointSet:
         """One point set from several (of the same scheme); `scheme` is needed when `parts`
         may be empty."""
         parts = list(parts)

@@ -57,7 +57,7 @@ class PolyhedronWindow(Window):
         self._scale = float(np.abs(self._v).max() + np.ptp(self._v, axis=0).max())
 
     @classmethod
-    def zonotope(cls, generators, center=(0.0, 0.0, 0.0)) -> "PolyhedronWindow":
+    def zonotope(cls, generators, center=(0.0, 0.0, 0.0)) -> PolyhedronWindow:
         """The zonotope ``center + Σ_j [−½, ½] g_j`` (projection of a centred hypercube).
 
         Parameters
@@ -70,7 +70,7 @@ class PolyhedronWindow(Window):
         if g.ndim != 2 or g.shape[1] != 3 or np.linalg.matrix_rank(g) < 3:
             raise InvalidInputError("a 3-D zonotope needs (n, 3) generators spanning space")
         ctr = np.asarray(center, dtype=np.float64)
-        norms = []
+        norms: list[np.ndarray] = []
         for i, j in combinations(range(len(g)), 2):
             n = np.cross(g[i], g[j])
             ln = np.linalg.norm(n)
@@ -139,14 +139,14 @@ class PolyhedronWindow(Window):
         k = np.atleast_2d(np.asarray(k_perp, dtype=np.float64))
         k2 = np.einsum("md,md->m", k, k)
         out = np.zeros(len(k), dtype=np.complex128)
-        tris, owner = [], []
+        tri_list, owner_list = [], []
         for fi, f in enumerate(self._faces):
             fc = f.mean(axis=0)
             for a, b in zip(f, np.roll(f, -1, axis=0)):
-                tris.append([fc, a, b])
-                owner.append(fi)
-        tris = np.array(tris)
-        owner = np.array(owner)
+                tri_list.append([fc, a, b])
+                owner_list.append(fi)
+        tris = np.array(tri_list)
+        owner = np.array(owner_list)
         area2 = np.linalg.norm(np.cross(tris[:, 1] - tris[:, 0], tris[:, 2] - tris[:, 0]), axis=1)
         t = -2j * np.pi * np.einsum("md,svd->msv", k, tris)
         e = exp_divided_differences(t.reshape(-1, 3)).reshape(len(k), len(tris)) * area2
@@ -156,7 +156,7 @@ class PolyhedronWindow(Window):
         out[k2 == 0] = self.measure
         return out
 
-    def translated(self, shift) -> "PolyhedronWindow":
+    def translated(self, shift) -> PolyhedronWindow:
         s = np.asarray(shift, dtype=np.float64).reshape(1, 3)
         return PolyhedronWindow([f + s for f in self._faces])
 

@@ -74,7 +74,8 @@ class CutProjectScheme:
         if window.dim != big_d - d:
             raise InvalidInputError(f"window dimension {window.dim} != internal dimension {big_d - d}")
         self.window = window
-        self.index_basis = np.eye(big_d, dtype=np.int64) if index_basis is None else np.asarray(index_basis, dtype=np.int64)
+        self.index_basis = (np.eye(big_d, dtype=np.int64) if index_basis is None
+                            else np.asarray(index_basis, dtype=np.int64))
         self.hypercube_offset = None if hypercube_offset is None else np.asarray(hypercube_offset, dtype=np.float64)
         self.window_kind = window_kind
         self.shift = np.zeros(big_d - d) if shift is None else np.asarray(shift, dtype=np.float64).reshape(big_d - d)
@@ -86,7 +87,7 @@ class CutProjectScheme:
         if abs(np.linalg.det(m)) < 1e-12:
             raise InvalidInputError("the embedding [parallel; internal] is singular")
         self._dual = np.linalg.inv(m).T @ self.index_basis
-        self._enum = None
+        self._enum: StripEnumerator | None = None
         self._search_cache: dict = {}
 
     # ---------------------------------------------------------------- basic properties
@@ -245,21 +246,10 @@ class CutProjectScheme:
         return self.window.transform(mv.k_perp)
 
     def _search_window(self, kperp_max: float) -> Window:
-        lo, hi = [], []
-        for dense in self.window.dense:
-            if dense:
-                lo.append(-kperp_max)
-                hi.append(kperp_max)
-            else:
-                # discrete internal directions (integer levels): the module is periodic
-                # with period 1 there; keep one representative in [−0.5, 0.5)
-                lo.append(-0.5)
-                hi.append(0.5 - 1e-9)
-        return BoxWindow(lo, hi)
-
-    def _dense_norm(self, k_perp: np.ndarray) -> np.ndarray:
-        mask = np.array(self.window.dense, dtype=bool)
-        return np.linalg.norm(k_perp[:, mask], axis=1)
+        # discrete internal directions (integer levels): the module is periodic with period 1
+        # there; keep one representative in [−0.5, 0.5)
+        dense = np.array(self.window.dense, dtype=bool)
+        return BoxWindow(np.where(dense, -kperp_max, -0.5), np.where(dense, kperp_max, 0.5 - 1e-9))
 
     def search_module(self, k_center, k_radius: float, kperp_max: float) -> ModuleVectors:
         """Module vectors with |k − k_center| ≤ k_radius (cycles/Å) and |k⊥| ≤ kperp_max.
@@ -306,7 +296,7 @@ class CutProjectScheme:
         parts = [n for n, _, _ in gen]
         h = np.concatenate(parts) if parts else np.zeros((0, self.lattice_dim), dtype=np.int64)
         mv = self.module(h)
-        keep = self._dense_norm(mv.k_perp) <= kperp_max
+        keep = np.linalg.norm(mv.k_perp[:, dense], axis=1) <= kperp_max
         if (~dense).any():
             z = mv.k_perp[:, ~dense]
             keep &= ((z >= -0.5 - 1e-9) & (z < 0.5 - 1e-9)).all(axis=1)
@@ -351,7 +341,7 @@ class CutProjectScheme:
         power = whole_number(power, "power", minimum=1)
         lam = float(self.inflation_factor) ** power
         conj = (-1.0 / float(self.inflation_factor)) ** power
-        big_d, d = self.lattice_dim, self.dim
+        d = self.dim
         g = self._dual
         g_inv = np.linalg.inv(g)
         dense = np.array(self.window.dense, dtype=bool)
@@ -380,13 +370,13 @@ class CutProjectScheme:
         return canonical_window(self.internal if internal is None else internal,
                                 self.hypercube_offset, self.window_kind)
 
-    def with_shift(self, shift) -> "CutProjectScheme":
+    def with_shift(self, shift) -> CutProjectScheme:
         """The same scheme with the window moved to ``W₀ + shift`` (a phason shift)."""
         s = real_array(np.atleast_1d(shift), "shift", shape=(self.internal_dim,))
         base = self.window.translated(-self.shift)
         return self._replace(window=base.translated(s), shift=s)
 
-    def _replace(self, **kw) -> "CutProjectScheme":
+    def _replace(self, **kw) -> CutProjectScheme:
         args = dict(name=self.name, parallel=self.parallel, internal=self.internal, window=self.window,
                     index_basis=self.index_basis, hypercube_offset=self.hypercube_offset,
                     window_kind=self.window_kind, shift=self.shift, inflation_factor=self.inflation_factor,
@@ -438,23 +428,23 @@ class CutProjectScheme:
 
         Notes
         -----
-        A round patch of radius R holds about ``expected_count(R)`` = density × ball volume
-        points (density = vol W / |det M|, per Å^d).
+        A round patch of radius R holds about density × ball volume points
+        (:meth:`expected_count`; density = vol W / |det M| per Å^d).
 
         Examples
         --------
         >>> from kinemap import quasi
         >>> patch = quasi.octagonal(edge=2.5).patch(20.0, species="Al")
         >>> patch.n_atoms
-        245
-        >>> patch.read().n_atoms
-        245
+        241
+        >>> patch.read().species_labels()
+        ['Al']
         """
         return Patch(self, radius, center=center, cells=cells, species=species, occupancy=occupancy,
                      b_iso=b_iso, pad=pad)
 
     # ---------------------------------------------------------------- approximants
-    def approximant(self, ratio, name: str | None = None) -> "CutProjectScheme":
+    def approximant(self, ratio, name: str | None = None) -> CutProjectScheme:
         """A periodic approximant: the irrational ξ of the physical space replaced by a
         rational `ratio` (e.g. τ → F_{n+1}/F_n, 1+√2 → ratio of Pell numbers).
 

@@ -186,4 +186,5 @@ def icosahedral_approximant(p: int, q: int, edge: float = 1.0, shift=None) -> Cu
     return icosahedral(edge, shift).approximant((p, q), name=f"icosahedral {p}/{q} approximant")
 
 
-__all__ = ["octagonal", "penrose", "icosahedral", "icosahedral_approximant", "fibonacci_ratio", "pell_ratio", "TAU", "SILVER", "metallic_mean"]
+__all__ = ["octagonal", "penrose", "icosahedral", "icosahedral_approximant", "fibonacci_ratio", "pell_ratio", "TAU",
+           "SILVER", "metallic_mean"]

@@ -79,7 +79,7 @@ class IntervalWindow(Window):
         w = self.hi - self.lo
         return w * np.exp(-2j * np.pi * k * c) * sinc(np.pi * k * w)
 
-    def translated(self, shift) -> "IntervalWindow":
+    def translated(self, shift) -> IntervalWindow:
         s = float(np.asarray(shift, dtype=np.float64).reshape(-1)[0])
         return IntervalWindow(self.lo + s, self.hi + s)
 
@@ -166,10 +166,10 @@ class PolygonWindow(Window):
         out[~zero] = (cn * edge).sum(axis=1)
         return out
 
-    def translated(self, shift) -> "PolygonWindow":
+    def translated(self, shift) -> PolygonWindow:
         return PolygonWindow(self._v + np.asarray(shift, dtype=np.float64).reshape(1, 2))
 
-    def scaled(self, factor: float) -> "PolygonWindow":
+    def scaled(self, factor: float) -> PolygonWindow:
         return PolygonWindow(self._v * float(factor))
 
     def __repr__(self) -> str:
@@ -235,7 +235,7 @@ class SlicedWindow(Window):
             out += np.exp(-2j * np.pi * k[:, 2] * z) * p.integral(k[:, :2])
         return out
 
-    def translated(self, shift) -> "SlicedWindow":
+    def translated(self, shift) -> SlicedWindow:
         s = np.asarray(shift, dtype=np.float64).reshape(-1)
         if len(s) == 3 and s[2] != 0:
             raise InvalidInputError("a sliced window can only be shifted within its planes (shift[2] must be 0)")
@@ -276,7 +276,7 @@ class BallWindow(Window):
     def integral(self, k_perp):  # pragma: no cover - not needed
         raise NotImplementedError("BallWindow is a search region, not an acceptance window")
 
-    def translated(self, shift) -> "BallWindow":
+    def translated(self, shift) -> BallWindow:
         return BallWindow(self._c + np.asarray(shift, dtype=np.float64), self.radius)
 
 
@@ -308,7 +308,7 @@ class BoxWindow(Window):
     def integral(self, k_perp):  # pragma: no cover - not needed
         raise NotImplementedError("BoxWindow is a search region, not an acceptance window")
 
-    def translated(self, shift) -> "BoxWindow":
+    def translated(self, shift) -> BoxWindow:
         s = np.asarray(shift, dtype=np.float64)
         return BoxWindow(self.lo + s, self.hi + s)
 
