@@ -434,6 +434,7 @@ def test_phason_jitter_is_local_and_reproducible():
     (lambda: kq.octagonal().patch(5.0, species=lambda p: ["A"] * len(p), b_iso={"B": 1.0}).species_labels(),
      "names species"),
     (lambda: list(kq.octagonal().patch(5.0).iter_chunks(0)), "chunk_atoms"),
+    (lambda: kq.Patch("octagonal", 5.0), "CutProjectScheme"),
     (lambda: kq.icosahedral().patch(3000.0).read(), "stream it in chunks"),  # refused before generating
 ])
 def test_bad_input_raises_clear_errors(call, match):

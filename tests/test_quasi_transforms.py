@@ -290,7 +290,8 @@ def _chain(m, n_points=None, generation=None, short=1.0):
     else:
         assert m == 1
         j = np.arange(n_points)
-        # |(j+1)/τ − integer| > 1/(√5 (j+1)) (Hurwitz) stays far above the rounding here
+        # |(j+1)/τ − integer| is of order 1/(√5 (j+1)) at the closest (Hurwitz's theorem; memory),
+        # far above the rounding here; the positions are compared with the code's below
         b = np.floor((j + 1) / TAU).astype(np.int64)
         a = j - b
     return a * short + b * lam * short, short * (a - b / lam), lam
@@ -410,7 +411,8 @@ def test_approximant_amplitudes_converge_to_quasicrystal():
         uc = ap.unit_cell()
         a = engine(uc.positions, ap.module(h).q) / len(uc)
         err = np.abs(np.abs(a) - [0.701998, 0.335745, 0.878991]).max()  # docs/references.md
-        # first order in the slope change: the amplitude is a smooth function of τ → p/q
+        # an estimate, first order in the slope change: the amplitude is a smooth function of
+        # the slope with a derivative of order one, so the error is below |τ − p/q|
         assert err < abs(TAU - p / q)
         errs.append(err)
     assert errs[0] > errs[1] > errs[2]

@@ -64,6 +64,14 @@ def _values(value, labels: np.ndarray | str, n: int, default: float):
     return out
 
 
+def _rule_name(rule: Callable) -> str:
+    """A species rule's name for the file metadata (a function's name, else its type)."""
+    try:
+        return str(rule.__name__)
+    except AttributeError:
+        return type(rule).__name__
+
+
 class Patch(AtomSourceBase):
     """A patch of a cut-and-project set (or a block of an approximant) as an atom source.
 
@@ -93,6 +101,11 @@ class Patch(AtomSourceBase):
 
     def __init__(self, scheme: CutProjectScheme, radius=None, *, center=None, cells=None,
                  species: str | Callable = "A", occupancy=None, b_iso=None, pad: float = 1.0):
+        from .scheme import CutProjectScheme  # the scheme module makes patches: imported late
+
+        if not isinstance(scheme, CutProjectScheme):
+            raise InvalidInputError(f"`scheme` must be a CutProjectScheme (e.g. quasi.octagonal()), "
+                                    f"got {type(scheme).__name__}")
         self.scheme = scheme
         if (radius is None) == (cells is None):
             raise InvalidInputError("give either `radius` (a round patch) or `cells` (a block of an "
@@ -182,8 +195,7 @@ class Patch(AtomSourceBase):
 
     def _extra_description(self) -> dict:
         d: dict = {"generator": self.scheme.name, "density": self.scheme.density,
-                   "species_rule": None if isinstance(self.species, str) else getattr(
-                       self.species, "__name__", type(self.species).__name__)}
+                   "species_rule": None if isinstance(self.species, str) else _rule_name(self.species)}
         if self.cells is not None:
             d["cells"] = list(self.cells)
         else:
