@@ -5,7 +5,9 @@ Cases (each runs in a fresh subprocess so that its peak resident set size is its
 * ``stream``   — kinemap.quasi strip search, points streamed in chunks and counted only:
                  memory stays at one chunk however large the patch.
 * ``arrays``   — the same, positions gathered into one preallocated (N, 3) float64 array
-                 (``scheme.positions``, what a Model needs): 24 bytes per point plus a chunk.
+                 (``scheme.positions``): 24 bytes per point plus a chunk.
+* ``patch``    — the atom source ``scheme.patch(radius)`` that kinemap.scatter streams: the
+                 same search, each chunk wrapped in a kinemap.Model (species, occupancy, B).
 * ``box``      — the straightforward search a user would write: every Z⁶ point of the
                  bounding box of the strip, projected and tested (vectorised NumPy, in
                  slices of the first coordinate). Run at a smaller size for the ratio.
@@ -42,6 +44,10 @@ if case == "stream":
 elif case == "arrays":
     pos = sch.positions(radius, chunk_points=chunk)
     n = len(pos)
+elif case == "patch":
+    n = 0
+    for model in sch.patch(radius).iter_chunks(chunk):
+        n += model.n_atoms
 elif case == "box":
     m = np.vstack([sch.parallel, sch.internal])
     minv = np.linalg.inv(m)
@@ -82,7 +88,7 @@ def main(argv=None) -> int:
     t0 = time.perf_counter()
     rows = []
     base = run_case("stream", 1.0, args.chunk)  # interpreter + numpy baseline
-    for case, n in (("stream", n_big), ("arrays", n_big), ("stream", n_small), ("box", n_small)):
+    for case, n in (("stream", n_big), ("arrays", n_big), ("patch", n_big), ("stream", n_small), ("box", n_small)):
         r = run_case(case, n, args.chunk)
         rows.append(r)
         print(f"{r['case']:>7}  N = {r['n']:>11,d}  R = {r['radius']:7.2f} Å  {r['seconds']:8.2f} s "
@@ -94,6 +100,11 @@ def main(argv=None) -> int:
     print(f"strip search vs box search at N = {s_small['n']:,}: {box['seconds'] / s_small['seconds']:.1f}x faster "
           f"(same count: {s_small['n'] == box['n']})")
     big = [r for r in rows if r["n"] >= n_big / 2]
+    stream = next(r for r in big if r["case"] == "stream")
+    patch = next(r for r in big if r["case"] == "patch")
+    print(f"patch (Model chunks) vs plain stream at N = {patch['n']:,}: "
+          f"{patch['cpu_seconds'] / stream['cpu_seconds']:.2f}x the CPU time, "
+          f"peak RSS {patch['peak_rss_mb']:.0f} vs {stream['peak_rss_mb']:.0f} MB")
     for r in big:
         print(f"{r['case']}: {r['seconds'] / r['n'] * 1e9:.0f} ns per point, "
               f"{(r['peak_rss_mb'] - base['peak_rss_mb']) * 2**20 / r['n']:.1f} bytes per point above baseline")

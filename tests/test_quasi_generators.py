@@ -1,9 +1,11 @@
 """Quasicrystal generators: densities, distances, tile and vertex statistics, substitution
 versus cut-and-project, streaming, approximants, decoration and bad input.
 
-References (see docs/references.md, section Quasicrystals): Baake & Grimm,
+References (see docs/references.md, quasicrystal section): Baake & Grimm,
 "Aperiodic Order" vol. 1 (CUP 2013); de Bruijn, Indag. Math. 43 (1981); Elser, PRB 32 (1985)
-4892. Values marked "(memory)" were recalled, not read from the source.
+4892. Values marked "(memory)" were recalled, not read from the source. Patch-size
+tolerances are the boundary layer: a fraction ≈ d·a/R of the points of a round patch of
+radius R lie within one edge a of its boundary.
 """
 
 from __future__ import annotations
@@ -11,12 +13,13 @@ from __future__ import annotations
 import math
 from itertools import combinations
 
+import kinemap as km
+import kinemap.quasi as kq
 import numpy as np
 import pytest
-from scipy.spatial import cKDTree
-
-import kinemap.quasi as kq
 from kinemap.errors import InvalidInputError
+from kinemap.model import AtomSource
+from scipy.spatial import cKDTree
 
 TAU = (1 + math.sqrt(5)) / 2
 
@@ -27,11 +30,11 @@ def _ball_volume(r, d):
 
 # --------------------------------------------------------------------------- densities
 @pytest.mark.parametrize("scheme, radius, density", [
-    # docs/references.md, Quasicrystals: Fibonacci τ/√5, octagonal 1.207107, Penrose 1.231073 (edge 1)
+    # docs/references.md: Fibonacci τ/√5, octagonal 1.207107, Penrose 1.231073 (edge 1)
     (kq.fibonacci(), 3000.0, TAU / math.sqrt(5)),
     (kq.octagonal(), 45.0, 1.207107),
     (kq.penrose(), 45.0, 1.231073),
-    # icosahedral: docs/references.md (Quasicrystals) window volume 12.310734 over |det M| = 8 (unit generators
+    # icosahedral: docs/references.md window volume 12.310734 over |det M| = 8 (unit generators
     # with MᵀM = 2I); checked independently below from tile volumes and frequencies
     (kq.icosahedral(), 11.0, 12.310734 / 8),
 ])
@@ -71,11 +74,11 @@ def test_minimum_distance(scheme, radius, d_min):
 
 
 def test_window_measures():
-    # docs/references.md, Quasicrystals: octagon area 2(1+√2), triacontahedron volume 4√(5+2√5) = 12.310734
+    # docs/references.md: octagon area 2(1+√2), triacontahedron volume 4√(5+2√5) = 12.310734
     assert kq.octagonal().window.measure == pytest.approx(2 * (1 + math.sqrt(2)), rel=1e-12)
     assert kq.icosahedral().window.measure == pytest.approx(12.310734, abs=5e-7)
     assert kq.icosahedral().window.measure == pytest.approx(4 * math.sqrt(5 + 2 * math.sqrt(5)), rel=1e-12)
-    # Penrose windows P, τP, τP, P (docs/references.md, Quasicrystals): 2|P|(1 + τ²), |P| = (5/2) sin 72°
+    # Penrose windows P, τP, τP, P (docs/references.md): 2|P|(1 + τ²), |P| = (5/2) sin 72°
     p_area = 2.5 * math.sin(2 * math.pi / 5)
     w = kq.penrose().window
     assert [round(p.measure / p_area, 9) for p in w.polygons] == pytest.approx([1, TAU ** 2, TAU ** 2, 1])
@@ -88,7 +91,7 @@ def test_window_measures():
 
 # --------------------------------------------------------------------------- tiles, vertices
 def test_fibonacci_tile_frequencies_converge_to_tau():
-    # L:S = τ:1 (docs/references.md, Quasicrystals); a chain of N tiles is within about 1/N
+    # L:S = τ:1 (docs/references.md); a chain of N tiles is within about 1/N
     ch = kq.fibonacci()
     for n in (1000, 100_000):
         counts = kq.count_tiles(ch.chain_points(0, n))
@@ -148,7 +151,7 @@ def test_substitution_equals_cut_and_project(m):
         cp = ch.chain_points(0, len(sub))
         assert np.array_equal(sub.indices, cp.indices)
         np.testing.assert_allclose(sub.positions, cp.positions, rtol=0, atol=1e-12 * len(sub))
-    # docs/references.md (Quasicrystals) closed form for Fibonacci: x_n = nS + (L − S)⌊(n+1)/τ⌋
+    # docs/references.md closed form for Fibonacci: x_n = nS + (L − S)⌊(n+1)/τ⌋
     if m == 1:
         n = np.arange(5000)
         x = n + (TAU - 1) * np.floor((n + 1) / TAU)
@@ -158,12 +161,14 @@ def test_substitution_equals_cut_and_project(m):
 def test_fibonacci_words():
     ch = kq.fibonacci()
     words = ["".join("L" if v else "S" for v in ch.word(g)) for g in range(5)]
-    # L → LS, S → L (docs/references.md, Quasicrystals)
+    # L → LS, S → L (docs/references.md)
     assert words == ["L", "LS", "LSL", "LSLLS", "LSLLSLSL"]
-    model = kq.fibonacci_model(34, method="substitution", species="Al")
+    # the word w_7 (34 tiles) as atoms: a patch over the segment [0, x_33] of the chain
+    sub = ch.substitution_points(7)
+    end = sub.positions[-1, 0]
+    model = ch.patch(end / 2, center=end / 2, species="Al").read()
     assert model.n_atoms == 34 and model.species_labels() == ["Al"]
-    with pytest.raises(InvalidInputError, match="Fibonacci word length"):
-        kq.fibonacci_model(35, method="substitution")
+    np.testing.assert_allclose(np.sort(model.positions[:, 0]), sub.positions[:, 0], atol=1e-12)
 
 
 def test_generic_search_equals_closed_form_and_shift():
@@ -202,22 +207,55 @@ def test_streaming_chunks_match_one_shot():
     assert (np.linalg.norm(off.positions - c, axis=1) <= 4.0 + 1e-9).all() and len(off) > 100
 
 
-def test_streaming_source_into_engine():
-    import kinemap as km
-
+def test_patch_is_an_atom_source_and_streams_into_the_engine():
     sch = kq.octagonal()
+    patch = sch.patch(25.0)
+    assert isinstance(patch, AtomSource) and isinstance(patch, kq.Patch)
+    assert patch.box is None and patch.cell is None  # a round patch of a quasicrystal
+    whole = patch.read()
+    assert whole.n_atoms == patch.n_atoms == len(sch.points(25.0))
+    d = patch.describe()
+    assert d["n_atoms"] == whole.n_atoms and d["box"] is None and d["radius"] == 25.0
+    # chunks of at most chunk_atoms that join to the whole patch
+    chunks = list(patch.iter_chunks(300))
+    assert len(chunks) > 5 and max(c.n_atoms for c in chunks) <= 300
+    np.testing.assert_array_equal(np.concatenate([c.positions for c in chunks]), whole.positions)
     q = sch.module([[1, 0, 0, 0], [1, 1, 0, 0]]).q
-    whole = km.scatter(sch.model(25.0), km.QGrid.points(q), probe="unit").amplitude
-    src = sch.source(25.0)
-    streamed = km.scatter(src, km.QGrid.points(q), probe="unit", chunk_atoms=300).amplitude
-    np.testing.assert_allclose(streamed, whole, rtol=1e-12, atol=1e-9)
-    assert src.n_atoms == sch.model(25.0).n_atoms
+    in_memory = km.scatter(whole, km.QGrid.points(q), probe="unit").amplitude
+    streamed = km.scatter(patch, km.QGrid.points(q), probe="unit", chunk_atoms=300).amplitude
+    np.testing.assert_allclose(streamed, in_memory, rtol=1e-12, atol=1e-9)
     # the gridded (FFT) engine takes the same streamed source; it promises a relative
     # accuracy `tol`, checked here against the exact sums with a margin
     grid = km.QGrid.plane([-6, -6, 0], [12, 0, 0], [0, 12, 0], (48, 48))
-    exact = km.scatter(src, grid, probe="unit", method="exact").amplitude
-    fast = km.scatter(src, grid, probe="unit", method="gridded", tol=1e-6).amplitude
+    exact = km.scatter(patch, grid, probe="unit", method="exact").amplitude
+    fast = km.scatter(patch, grid, probe="unit", method="gridded", tol=1e-6).amplitude
     assert np.abs(fast - exact).max() <= 1e-4 * np.abs(exact).max()
+
+
+def test_patch_with_species_rule_and_debye_waller():
+    sch = kq.octagonal()
+
+    def rule(points):
+        return kq.species_by_perp(points, radii=[0.8], labels=["Mn", "Al"])
+
+    patch = sch.patch(20.0, species=rule, b_iso={"Mn": 0.5, "Al": 1.0})
+    assert patch.species_labels() == ["Al", "Mn"]
+    model = patch.read()
+    ps = sch.points(20.0)
+    r = np.linalg.norm(ps.perp, axis=1)  # window centre at the origin
+    assert (model.species == "Mn").sum() == (r < 0.8).sum() > 0
+    np.testing.assert_array_equal(model.b_iso, np.where(model.species == "Mn", 0.5, 1.0))
+    # a rule sees one chunk at a time and decides each point alone: chunking changes nothing
+    small = kq.Patch(sch, 20.0, species=rule)
+    joined = np.concatenate([c.species for c in small.iter_chunks(97)])
+    np.testing.assert_array_equal(joined, model.species)
+    # Debye–Waller through the patch: B = 1 Å² for Al and 0.5 Å² for Mn, exp(−B s²) per
+    # atom (ITC Vol. C §8.1), against a NumPy sum
+    q = sch.module([[1, 0, 0, 0], [2, 1, 0, -1]]).q
+    s2 = (np.linalg.norm(q, axis=1) / (4 * np.pi)) ** 2
+    ref = (np.exp(-np.outer(s2, model.b_iso)) * np.exp(1j * q @ model.positions.T)).sum(axis=1)
+    np.testing.assert_allclose(km.scatter(patch, km.QGrid.points(q), probe="unit").amplitude, ref,
+                               rtol=1e-12, atol=1e-9)
 
 
 # --------------------------------------------------------------------------- approximants
@@ -292,12 +330,33 @@ def test_octagonal_and_penrose_approximants():
             assert ap.window.contains(y).all()
 
 
-def test_approximant_model_has_cell():
+def test_approximant_block_is_periodic_with_its_box():
     ap = kq.octagonal().approximant((3, 2))
-    block = ap.approximant_block([2, 2])
-    model = block.to_model("Al", cell=ap.cell3())
-    assert model.n_atoms == 4 * len(ap.unit_cell())
-    assert model.cell[2, 2] == 1.0
+    block = ap.patch(cells=(2, 3), species="Al")
+    assert isinstance(block, AtomSource)
+    n_cell = len(ap.unit_cell())
+    assert block.n_atoms == 6 * n_cell
+    cell = ap.cell3()
+    np.testing.assert_allclose(block.cell, cell)
+    np.testing.assert_allclose(block.box, np.diag([2.0, 3.0, 1.0]) @ cell)
+    model = block.read()
+    assert model.n_atoms == 6 * n_cell
+    np.testing.assert_allclose(model.box, block.box)
+    chunks = list(block.iter_chunks(n_cell - 3))  # chunks that split cells
+    np.testing.assert_array_equal(np.concatenate([c.positions for c in chunks]), model.positions)
+    # Laue function of the block (docs/references.md, crystals): 6 × F_cell at the cell's
+    # reciprocal points, 0 at the box's other reciprocal points
+    recip_box = 2 * np.pi * np.linalg.inv(block.box).T
+    hk = np.array([[2, 0, 0], [0, 3, 0], [2, 3, 0], [1, 0, 0], [0, 1, 0], [1, 2, 0]])
+    amp = km.scatter(block, km.QGrid.points(hk @ recip_box), probe="unit").amplitude
+    cell_only = kq.Patch(ap, cells=(1, 1)).read()
+    f_cell = km.scatter(cell_only, km.QGrid.points(hk[:3] @ recip_box), probe="unit").amplitude
+    np.testing.assert_allclose(amp[:3], 6 * f_cell, rtol=1e-10, atol=1e-8)
+    assert np.abs(amp[3:]).max() < 1e-8 * block.n_atoms
+    # a round patch of an approximant: not periodic, but h, k, l refer to its cell
+    round_patch = ap.patch(10.0)
+    assert round_patch.box is None
+    np.testing.assert_allclose(round_patch.cell, cell)
 
 
 # --------------------------------------------------------------------------- decoration
@@ -306,7 +365,7 @@ def test_species_by_perp_and_vertex_type():
     lab = kq.species_by_perp(ps, radii=[0.8], labels=["Mn", "Al"])
     r = np.linalg.norm(ps.perp, axis=1)
     assert set(lab[r < 0.8]) == {"Mn"} and set(lab[r >= 0.8]) == {"Al"}
-    model = ps.to_model(lab)
+    model = km.Model(ps.positions, lab)
     assert model.species_labels() == ["Al", "Mn"]
     by_deg = kq.species_by_coordination(ps, {8: "Cu"}, default="Al")
     assert (by_deg == "Cu").sum() == (kq.coordination(ps) == 8).sum() > 0
@@ -338,19 +397,45 @@ def test_phason_jitter_is_local_and_reproducible():
 # --------------------------------------------------------------------------- bad input
 @pytest.mark.parametrize("call, match", [
     (lambda: kq.octagonal(edge=-1), "edge"),
+    (lambda: kq.octagonal(edge=True), "edge"),
     (lambda: kq.octagonal(shift=(0, 0, 0)), "shift"),
     (lambda: kq.icosahedral().points(float("nan")), "radius"),
+    (lambda: kq.icosahedral().points("3"), "radius"),
     (lambda: kq.icosahedral().points(3.0, center=(0, 0)), "center"),
     (lambda: kq.fibonacci(short=0), "short"),
     (lambda: kq.metallic_chain(0), "metallic"),
+    (lambda: kq.metallic_chain(2.0), "metallic"),
     (lambda: kq.fibonacci().module([[1, 2, 3]]), "indices"),
+    (lambda: kq.fibonacci().module([[1.5, 2]]), "indices"),
     (lambda: kq.fibonacci().word(80), "too many"),
+    (lambda: kq.fibonacci().word(True), "generation"),
     (lambda: kq.octagonal().approximant("x"), "ratio"),
+    (lambda: kq.octagonal().approximant(1.5), "ratio"),
     (lambda: kq.octagonal().cell(), "not periodic"),
     (lambda: list(kq.octagonal().iter_points(5.0, chunk_points=0)), "chunk_points"),
     (lambda: kq.phason_jitter_points(kq.octagonal(), 5.0, sigma=-1), "sigma"),
+    (lambda: kq.phason_jitter_points(kq.octagonal(), 5.0, sigma=0.1, seed=1.5), "seed"),
     (lambda: kq.icosahedral().points(5000.0), "stream it in chunks"),  # refused before allocating
-    (lambda: kq.fibonacci().chain_points(0, 10 ** 13), "memory"),
+    (lambda: kq.fibonacci().chain_points(0, 10 ** 13), "stream it in chunks"),
+    (lambda: kq.pell_ratio(0), "`n`"),
+    # patches
+    (lambda: kq.octagonal().patch(), "either `radius`"),
+    (lambda: kq.octagonal().approximant((3, 2)).patch(5.0, cells=(1, 1)), "either `radius`"),
+    (lambda: kq.octagonal().patch(cells=(2, 2)), "periodic"),
+    (lambda: kq.octagonal().approximant((3, 2)).patch(cells=(2,)), "cells"),
+    (lambda: kq.octagonal().approximant((3, 2)).patch(cells=(2, 0)), "cells"),
+    (lambda: kq.octagonal().approximant((3, 2)).patch(cells=(1, 1), center=(0, 0)), "center"),
+    (lambda: kq.octagonal().patch(5.0, species=""), "species"),
+    (lambda: kq.octagonal().patch(5.0, species=3), "species"),
+    (lambda: kq.octagonal().patch(5.0, b_iso={"B": 1.0}), "names species"),
+    (lambda: kq.octagonal().patch(5.0, b_iso=-1.0), "b_iso"),
+    (lambda: kq.octagonal().patch(5.0, occupancy=1.5), "occupancy"),
+    (lambda: kq.octagonal().patch(5.0, species=lambda p: ["A"]).n_atoms, "one per point"),
+    (lambda: kq.octagonal().patch(5.0, species=lambda p: ["A"] * len(p), b_iso={"B": 1.0}).species_labels(),
+     "names species"),
+    (lambda: list(kq.octagonal().patch(5.0).iter_chunks(0)), "chunk_atoms"),
+    (lambda: kq.Patch("octagonal", 5.0), "CutProjectScheme"),
+    (lambda: kq.icosahedral().patch(3000.0).read(), "stream it in chunks"),  # refused before generating
 ])
 def test_bad_input_raises_clear_errors(call, match):
     with pytest.raises(InvalidInputError, match=match):

@@ -10,11 +10,10 @@ from __future__ import annotations
 
 import math
 
-import numpy as np
-import pytest
-
 import kinemap as km
 import kinemap.quasi as kq
+import numpy as np
+import pytest
 from kinemap.errors import InvalidInputError
 
 TAU = (1 + math.sqrt(5)) / 2
@@ -88,6 +87,33 @@ def test_find_peaks_ignores_the_map_border_and_forward_beam():
     assert len(kq.find_peaks(img, grid=grid, threshold=0.05, min_q=0.5, exclude_border=False)) == 2
 
 
+def test_find_peaks_counts_a_plateau_once():
+    # two equal neighbouring maxima (a flat top two pixels wide) are one peak, found at its
+    # first pixel in C order and refined to the vertex of the parabola through (0, 2, 2):
+    # half a pixel further; a lower maximum elsewhere is another
+    img = np.zeros((9, 9))
+    img[4, 3] = img[4, 4] = 2.0
+    img[1, 7] = 1.0
+    q = np.zeros((9, 9, 3))
+    q[..., 0], q[..., 1] = np.meshgrid(np.arange(9.0), np.arange(9.0), indexing="ij")
+    pk = kq.find_peaks(img, q=q, threshold=0.1, exclude_border=False)
+    np.testing.assert_allclose(pk.pixel, [[4, 3.5], [1, 7]], atol=1e-15)
+    # a larger neighbourhood lets the higher peak swallow the lower one
+    assert len(kq.find_peaks(img, q=q, threshold=0.1, neighbourhood=3, exclude_border=False)) == 1
+
+
+def test_rank_correlation_against_a_hand_computation():
+    from kinemap.quasi.index_result import rank_correlation
+
+    # Spearman's ρ = 1 − 6 Σd²/(n(n² − 1)) without ties: ranks (1 2 3 4 5) and (2 1 4 3 5) give
+    # Σd² = 4, ρ = 1 − 24/120 = 0.8 (textbook formula)
+    assert rank_correlation([1.0, 2.0, 3.0, 4.0, 5.0], [20.0, 10.0, 40.0, 30.0, 50.0]) == pytest.approx(0.8)
+    # ties get average ranks: (1, 2.5, 2.5, 4) against (1, 2, 3, 4): Pearson of the ranks is
+    # 4.5/√(4.5·5) = √0.9
+    assert rank_correlation([1.0, 5.0, 5.0, 9.0], [1.0, 2.0, 3.0, 4.0]) == pytest.approx(math.sqrt(0.9))
+    assert rank_correlation([1.0, 1.0, 1.0], [1.0, 2.0, 3.0]) == 0.0  # constant: no evidence
+
+
 # --------------------------------------------------------------------------- indexing
 @pytest.mark.parametrize("make", [kq.fibonacci, kq.octagonal, kq.penrose, kq.icosahedral])
 @pytest.mark.parametrize("with_intensity", [True, False])
@@ -113,7 +139,11 @@ def test_indexing_recovers_placed_indices(make, with_intensity):
     assert np.nanmax(res.residual / res.tolerance) < 1.0
     ok, why = res.verdict()
     assert ok, why
-    np.testing.assert_allclose(res.predicted, inten, rtol=1e-9)
+    if sch.dim == 1:
+        # predicted intensities are |T|² of the window transform: for Fibonacci
+        # |sin(πτk*)/(πτk*)|², k* = (h'/τ − h)/√5 (docs/references.md)
+        k_star = (res.indices[:, 1] / TAU - res.indices[:, 0]) / math.sqrt(5)
+        np.testing.assert_allclose(res.predicted, np.sinc(TAU * k_star) ** 2, rtol=1e-9, atol=1e-15)
 
 
 def test_full_pipeline_on_a_synthetic_octagonal_map():
@@ -277,13 +307,19 @@ def test_table_and_plots(tmp_path):
     ch = kq.fibonacci()
     ps = ch.chain_points(0, 300)
     grid = km.QGrid.line([0.3, 0, 0], [12.0, 0, 0], 3001)
-    pat = km.scatter(ps.to_model(), grid, probe="unit")
+    pat = km.scatter(km.Model(ps.positions, "A"), grid, probe="unit")
     r1 = kq.index_peaks(ch, kq.find_peaks(pat, threshold=0.02))
     p1 = kq.plot_indexed(r1, tmp_path / "chain.png", pattern=pat)
     assert p1.read_bytes()[:4] == b"\x89PNG"
-    assert not list(tmp_path.glob("*.part"))
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["chain.png", "octagonal.png"]  # no leftovers
     with pytest.raises(InvalidInputError, match="png"):
         res.plot(tmp_path / "x.jpg")
+    # an existing picture is kept unless overwrite=True
+    before = path.read_bytes()
+    with pytest.raises(FileExistsError, match="overwrite"):
+        res.plot(path, annotate=0)
+    assert path.read_bytes() == before
+    assert res.plot(path, annotate=0, overwrite=True).read_bytes() != before
 
 
 @pytest.mark.parametrize("call, match", [

@@ -48,13 +48,15 @@ def build_frames(edge: float = EDGE, radius: float = RADIUS, n_frames: int = N_F
     from .model import Model
     from .quasi.tilings import octagonal
 
-    scheme = octagonal(edge)
-    pts = scheme.points(radius, with_indices=False)
     inradius = edge * (1.0 + np.sqrt(2.0)) / 2.0  # regular octagon window of edge `edge`
-    r_perp = np.linalg.norm(pts.perp, axis=1)
-    species = np.where(r_perp < CO_FRACTION_OF_INRADIUS * inradius, "Co", "Al").astype(object)
+
+    def cobalt_near_window_centre(points):
+        return np.where(np.linalg.norm(points.perp, axis=1) < CO_FRACTION_OF_INRADIUS * inradius, "Co", "Al")
+
+    layer = octagonal(edge).patch(radius, species=cobalt_near_window_centre).read()
+    species = layer.species
     rng = np.random.default_rng(seed)
-    base = np.asarray(pts.positions, dtype=np.float64)
+    base = np.asarray(layer.positions, dtype=np.float64)
     return [Model(base + _waves(base, rng, wave_rms) + rng.normal(0.0, jitter, base.shape), species)
             for _ in range(n_frames)]
 

@@ -39,7 +39,8 @@ class StripEnumerator:
     internal : ndarray (e, D)
         Internal-space images of the unit vectors.
     window : Window
-        Acceptance region in internal space (needs ``bounds``, ``vertices``, ``contains``).
+        Acceptance region in internal space (its ``bounds``, ``vertices``, ``contains`` and,
+        for convex polytopes, ``halfspaces`` are used).
     """
 
     def __init__(self, parallel, internal, window):
@@ -90,8 +91,9 @@ class StripEnumerator:
         # Polytope windows: the last window coordinate gets its exact integer range from the
         # half-spaces, instead of a box, which cuts the candidates to about one per point.
         self.faces = None
-        if hasattr(window, "halfspaces") and e >= 1:
-            normals, offsets = window.halfspaces()
+        halfspaces = window.halfspaces() if e >= 1 else None
+        if halfspaces is not None:
+            normals, offsets = halfspaces
             normals = np.asarray(normals, float)
             offsets = np.asarray(offsets, float)
             coef = normals @ q[:, self.b_idx[-1]]

@@ -23,7 +23,8 @@ def _dec_pi() -> decimal.Decimal:
     """π to the current decimal precision (the series recipe of the Python `decimal` docs)."""
     decimal.getcontext().prec += 2
     three = decimal.Decimal(3)
-    lasts, t, s, n, na, d, da = 0, three, 3, 1, 0, 0, 24
+    lasts, t, s = decimal.Decimal(0), three, three
+    n, na, d, da = 1, 0, 0, 24
     while s != lasts:
         lasts = s
         n, na = n + na, na + 8

@@ -5,9 +5,9 @@ is the inflation factor of the substitution L → L^m S, S → L. Its fixed poin
 tile L = λ_m·S, is the cut-and-project set of Z² with
 
 * lattice step "S" ↦ physical S, internal S;   step "L" ↦ physical L, internal −S/λ_m;
-* window [−S, S/λ_m) + shift (docs/references.md, Quasicrystals; Fibonacci: [−1, τ−1) for S = 1);
+* window [−S, S/λ_m) + shift (docs/references.md, Fibonacci: [−1, τ−1) for S = 1);
 * positions x_n = (n − b_n) S + b_n L with b_n = ⌊(n − c + 1) λ/(λ+1)⌋, c = shift/S
-  (for m = 1, c = 0: x_n = nS + (L − S)⌊(n+1)/τ⌋, docs/references.md, Quasicrystals);
+  (for m = 1, c = 0: x_n = nS + (L − S)⌊(n+1)/τ⌋, docs/references.md);
 * Fourier module k = (h + h′λ)/(√(m²+4)·S), k⊥ = (h′/λ − h)/(√(m²+4)·S) for L = λS, with
   the window transform |T| = |sinc(π(1 + 1/λ)S k⊥)|; for Fibonacci (0,1): 0.701998,
   (1,0): 0.335745, (1,1): 0.878991, (2,1): extinct.
@@ -30,37 +30,27 @@ import math
 
 import numpy as np
 
+from .._shared.memory import check_fits
+from .._shared.validate import real_array, real_number, whole_number
 from ..errors import InvalidInputError
-from ._precise import (dd_floor, dd_frac, dd_mul, inv_two_pi_dd, metallic_mean_decimal, split_decimal,
-                       two_prod, two_sum)
-from .scheme import CutProjectScheme, PointSet, check_fits, embed3
+from ._precise import dd_floor, dd_frac, dd_mul, inv_two_pi_dd, metallic_mean_decimal, split_decimal, two_prod, two_sum
+from .points import STREAM_HINT, PointSet, embed3
+from .scheme import CutProjectScheme
 from .windows import IntervalWindow
 
 #: Largest generation whose tile counts stay exact in float64 arithmetic (< 2**53).
 _MAX_COUNT = 2 ** 53
 
 
-def _check_m(m) -> int:
-    if isinstance(m, bool) or not isinstance(m, (int, np.integer)) or m < 1:
-        raise InvalidInputError(f"`m` (metallic-mean index) must be an integer >= 1, got {m!r}")
-    return int(m)
-
-
 def _length(value, name: str) -> float:
-    try:
-        v = float(value)
-    except (TypeError, ValueError):
-        raise InvalidInputError(f"`{name}` must be a length in Å, got {value!r}") from None
-    if not (np.isfinite(v) and v > 0):
-        raise InvalidInputError(f"`{name}` must be a finite length > 0 (Å), got {value!r}")
-    return v
+    return real_number(value, name, minimum=0.0, exclusive_minimum=True)
 
 
 class ChainScheme(CutProjectScheme):
     """A metallic-mean chain as a cut-and-project scheme (D = 2, d = 1).
 
     Use :func:`fibonacci` or :func:`metallic_chain` to make one. Module indices are
-    (h, h′) with k = (h + h′λ)/(√(m²+4)·S) when L = λS (docs/references.md, Quasicrystals).
+    (h, h′) with k = (h + h′λ)/(√(m²+4)·S) when L = λS (docs/references.md convention).
     """
 
     def __init__(self, m: int, short: float, long: float, shift: float):
@@ -113,10 +103,10 @@ class ChainScheme(CutProjectScheme):
         PointSet with positions (x, 0, 0) in Å, internal coordinates and lattice
         coordinates (number of short steps, number of long steps).
         """
-        if stop < start:
-            raise InvalidInputError(f"`stop` ({stop}) must be >= `start` ({start})")
-        check_fits(80.0 * (int(stop) - int(start)), f"a chain of {int(stop) - int(start):,} points")
-        n = np.arange(int(start), int(stop), dtype=np.int64)
+        start = whole_number(start, "start")
+        stop = whole_number(stop, "stop", minimum=start)
+        check_fits(80.0 * (stop - start), f"a chain of {stop - start:,} points", hint=STREAM_HINT)
+        n = np.arange(start, stop, dtype=np.int64)
         b = self.long_counts(n)
         a = n - b
         x = a * self.short + b * self.long
@@ -126,27 +116,25 @@ class ChainScheme(CutProjectScheme):
 
     def iter_chain(self, n_points: int, start: int = 0, chunk_points: int = 1 << 22):
         """Stream `n_points` consecutive points from index `start` in chunks (PointSet)."""
-        if isinstance(n_points, bool) or not isinstance(n_points, (int, np.integer)) or n_points < 0:
-            raise InvalidInputError(f"`n_points` must be a whole number >= 0, got {n_points!r}")
-        if isinstance(chunk_points, bool) or not isinstance(chunk_points, (int, np.integer)) or chunk_points < 1:
-            raise InvalidInputError(f"`chunk_points` must be a whole number >= 1, got {chunk_points!r}")
-        for s in range(int(start), int(start) + int(n_points), int(chunk_points)):
-            yield self.chain_points(s, min(int(start) + int(n_points), s + int(chunk_points)))
+        n_points = whole_number(n_points, "n_points", minimum=0)
+        chunk_points = whole_number(chunk_points, "chunk_points", minimum=1)
+        start = whole_number(start, "start")
+        for s in range(start, start + n_points, chunk_points):
+            yield self.chain_points(s, min(start + n_points, s + chunk_points))
 
     def iter_points(self, radius, center=None, chunk_points: int = 1 << 18, with_indices: bool = False):
         """Points with |x − center| ≤ radius, streamed by the closed form."""
-        radius, c = self._check_region(radius, center)
+        radius, c = self.check_region(radius, center)
+        chunk_points = whole_number(chunk_points, "chunk_points", minimum=1)
         lo, hi = c[0] - radius, c[0] + radius
         # x_n ≈ n · mean tile length; bracket the index range generously and filter
         mean = 1.0 / self.density
         n0 = int(math.floor(lo / mean)) - 4
         n1 = int(math.ceil(hi / mean)) + 4
-        for s in range(n0, n1 + 1, int(chunk_points)):
-            ps = self.chain_points(s, min(n1 + 1, s + int(chunk_points)))
+        for s in range(n0, n1 + 1, chunk_points):
+            ps = self.chain_points(s, min(n1 + 1, s + chunk_points))
             keep = np.abs(ps.positions[:, 0] - c[0]) <= radius * (1 + 1e-12)
-            ps = ps.subset(keep)
-            if not with_indices:
-                ps.indices = None
+            ps = ps.subset(keep, with_indices=with_indices)
             if len(ps):
                 yield ps
 
@@ -194,9 +182,7 @@ class ChainScheme(CutProjectScheme):
 
 
 def _generation(generation, m, limit) -> int:
-    if isinstance(generation, bool) or not isinstance(generation, (int, np.integer)) or generation < -1:
-        raise InvalidInputError(f"`generation` must be an integer >= -1, got {generation!r}")
-    g = int(generation)
+    g = whole_number(generation, "generation", minimum=-1)
     # estimate the word length λ^g; refuse words that cannot be held
     lam = float(metallic_mean_decimal(m))
     if limit is not None and g > 0 and g * math.log(lam) > math.log(limit):
@@ -243,51 +229,11 @@ def metallic_chain(m: int = 1, short: float = 1.0, long: float | None = None, sh
     -------
     ChainScheme
     """
-    m = _check_m(m)
+    m = whole_number(m, "m (the metallic-mean index)", minimum=1)
     s = _length(short, "short")
     lam = float(metallic_mean_decimal(m))
     ln = lam * s if long is None else _length(long, "long")
-    try:
-        c = float(shift)
-    except (TypeError, ValueError):
-        raise InvalidInputError(f"`shift` must be a number (internal-space Å), got {shift!r}") from None
-    if not np.isfinite(c):
-        raise InvalidInputError(f"`shift` must be finite, got {shift!r}")
-    return ChainScheme(m, s, ln, c)
-
-
-def fibonacci_model(n_points: int, short: float = 1.0, long: float | None = None, shift: float = 0.0,
-                    method: str = "cut_project", species: str = "A"):
-    """A :class:`kinemap.Model` of the first `n_points` points of a Fibonacci chain.
-
-    Parameters
-    ----------
-    n_points : int
-        Number of points (tiles). With ``method="substitution"`` it must be the length of a
-        word w_n (a Fibonacci number ≥ 1).
-    method : {"cut_project", "substitution"}
-    species : str
-
-    Returns
-    -------
-    kinemap.Model with positions (x, 0, 0), x ≥ 0, starting at 0.
-    """
-    ch = fibonacci(short, long, shift)
-    if method == "cut_project":
-        ps = ch.chain_points(0, int(n_points))
-    elif method == "substitution":
-        g, n = -1, 1
-        while n < n_points:
-            g += 1
-            n = ch.n_tiles(g)
-        if n != n_points:
-            raise InvalidInputError(f"`n_points` = {n_points} is not a Fibonacci word length (next is {n})")
-        if shift != 0.0:
-            raise InvalidInputError("the substitution fixed point has shift 0; use method='cut_project'")
-        ps = ch.substitution_points(g)
-    else:
-        raise InvalidInputError(f"`method` must be 'cut_project' or 'substitution', got {method!r}")
-    return ps.to_model(species)
+    return ChainScheme(m, s, ln, real_number(shift, "shift"))
 
 
 def chain_transform(chain: ChainScheme, q, generation: int) -> np.ndarray:
@@ -322,16 +268,15 @@ def chain_transform(chain: ChainScheme, q, generation: int) -> np.ndarray:
     is the rounding of the recursion itself, ~n·1e-16 relative.
     """
     if not isinstance(chain, ChainScheme):
-        raise InvalidInputError(f"`chain` must be a ChainScheme (fibonacci()/metallic_chain()), got {type(chain).__name__}")
-    qa = np.asarray(q, dtype=np.float64)
+        raise InvalidInputError(f"`chain` must be a ChainScheme (fibonacci()/metallic_chain()), "
+                                f"got {type(chain).__name__}")
+    qa = real_array(q, "q")
     if qa.ndim == 2 and qa.shape[1] == 3:
         qa = qa[:, 0]
     elif qa.ndim == 0:
         qa = qa.reshape(1)
     if qa.ndim != 1:
         raise InvalidInputError(f"`q` must have shape (M,) or (M, 3), got {np.shape(q)}")
-    if not np.isfinite(qa).all():
-        raise InvalidInputError("`q` has non-finite values")
     g = _generation(generation, chain.m, limit=None)
     inv_hi, inv_lo = inv_two_pi_dd()
 
@@ -370,4 +315,4 @@ def chain_transform(chain: ChainScheme, q, generation: int) -> np.ndarray:
     return g_cur
 
 
-__all__ = ["ChainScheme", "fibonacci", "metallic_chain", "fibonacci_model", "chain_transform"]
+__all__ = ["ChainScheme", "fibonacci", "metallic_chain", "chain_transform"]

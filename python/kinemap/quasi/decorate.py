@@ -21,8 +21,11 @@ from itertools import combinations, product
 
 import numpy as np
 
+from .._shared.validate import real_number, whole_number
 from ..errors import InvalidInputError
-from .scheme import CutProjectScheme, PointSet, embed3
+from ._enumerate import StripEnumerator
+from .points import PointSet, embed3
+from .scheme import CutProjectScheme
 from .windows import BoxWindow
 
 
@@ -214,8 +217,7 @@ def phonon_displacements(points, u_rms: float, seed=0) -> np.ndarray:
         dim = 3
         if pos.ndim != 2 or pos.shape[1] != 3:
             raise InvalidInputError(f"`points` must be a PointSet or an (N, 3) array, got shape {pos.shape}")
-    if not (np.isfinite(u_rms) and u_rms >= 0):
-        raise InvalidInputError(f"`u_rms` must be >= 0 (Å), got {u_rms!r}")
+    u_rms = real_number(u_rms, "u_rms", minimum=0.0)
     rng = seed if isinstance(seed, np.random.Generator) else np.random.default_rng(seed)
     out = pos.copy()
     out[:, :dim] += rng.normal(0.0, float(u_rms), size=(len(pos), dim))
@@ -279,13 +281,9 @@ def phason_jitter_points(scheme: CutProjectScheme, radius, sigma: float, seed: i
         Its mean per-point amplitude at module vector k tends to
         T_W(k⊥)·exp(−2π²σ²|k⊥|²) (convolution of the window with the jitter law).
     """
-    from ._enumerate import StripEnumerator
-
-    if not (np.isfinite(sigma) and sigma >= 0):
-        raise InvalidInputError(f"`sigma` must be >= 0 (internal-space Å), got {sigma!r}")
-    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)):
-        raise InvalidInputError(f"`seed` must be an integer, got {seed!r}")
-    radius, c = scheme._check_region(radius, center)
+    sigma = real_number(sigma, "sigma", minimum=0.0)
+    seed = whole_number(seed, "seed")
+    radius, c = scheme.check_region(radius, center)
     w = scheme.window
     dense = np.array(w.dense, dtype=bool)
     lo, hi = w.bounds()
@@ -295,7 +293,7 @@ def phason_jitter_points(scheme: CutProjectScheme, radius, sigma: float, seed: i
     e = scheme.internal_dim
 
     def accept(n, x, y):
-        z = _lattice_normals(n, int(seed), e) * sigma
+        z = _lattice_normals(n, seed, e) * sigma
         z[:, ~dense] = 0.0
         return w.contains(y + z)
 

@@ -5,15 +5,15 @@
 * :func:`icosahedral` — three-dimensional Penrose (Ammann–Kramer) vertex set from Z⁶
   (rhombic-triacontahedron window).
 
-Bases follow docs/references.md, Quasicrystals (Baake & Grimm 2013; de Bruijn 1981; Elser 1985):
+Bases follow docs/references.md (Baake & Grimm 2013; de Bruijn 1981; Elser 1985):
 octagonal e_j∥ = (cos πj/4, sin πj/4), e_j⊥ = (cos 3πj/4, sin 3πj/4); Penrose
 e_j∥ = (cos 2πj/5, sin 2πj/5), e_j⊥ = (cos 4πj/5, sin 4πj/5) plus the level Σn_j;
 icosahedral e_j∥ ∝ (±1, τ, 0), (0, ±1, τ), (±τ, 0, 1), e_j⊥ their Galois conjugates
 (τ → −1/τ), all of unit length. Edge lengths scale both spaces.
 
-Each scheme can stream points (:meth:`CutProjectScheme.iter_points`), build a
-:class:`kinemap.Model`, give its Fourier module and window transform, and make periodic
-approximants (:meth:`CutProjectScheme.approximant`).
+Each scheme streams points (:meth:`CutProjectScheme.iter_points`), makes patches of atoms for
+kinemap's engines (:meth:`CutProjectScheme.patch`), gives its Fourier module and window
+transform, and makes periodic approximants (:meth:`CutProjectScheme.approximant`).
 """
 
 from __future__ import annotations
@@ -22,31 +22,23 @@ import math
 
 import numpy as np
 
-from ..errors import InvalidInputError
+from .._shared.validate import real_array, real_number, whole_number
 from ._precise import metallic_mean
-from .scheme import CutProjectScheme, canonical_window
+from .scheme import CutProjectScheme
+from .windows import canonical_window
 
 TAU = (1.0 + math.sqrt(5.0)) / 2.0
 SILVER = 1.0 + math.sqrt(2.0)
 
 
 def _edge(edge) -> float:
-    try:
-        a = float(edge)
-    except (TypeError, ValueError):
-        raise InvalidInputError(f"`edge` must be a length in Å, got {edge!r}") from None
-    if not (np.isfinite(a) and a > 0):
-        raise InvalidInputError(f"`edge` must be a finite length > 0 (Å), got {edge!r}")
-    return a
+    return real_number(edge, "edge", minimum=0.0, exclusive_minimum=True)
 
 
 def _shift(shift, n: int) -> np.ndarray:
     if shift is None:
         return np.zeros(n)
-    s = np.asarray(shift, dtype=np.float64).reshape(-1)
-    if s.shape != (n,) or not np.isfinite(s).all():
-        raise InvalidInputError(f"`shift` must be {n} finite numbers (internal-space Å), got {shift!r}")
-    return s
+    return real_array(shift, "shift", shape=(n,))
 
 
 def octagonal(edge: float = 1.0, shift=None) -> CutProjectScheme:
@@ -63,7 +55,7 @@ def octagonal(edge: float = 1.0, shift=None) -> CutProjectScheme:
     Returns
     -------
     CutProjectScheme
-        Density (1+√2)/2 = 1.207107 points per edge² (docs/references.md, Quasicrystals); module
+        Density (1+√2)/2 = 1.207107 points per edge² (docs/references.md); module
         k = ½ Σ h_j e_j∥ / edge² (cycles/Å), inflation factor 1+√2.
     """
     a = _edge(edge)
@@ -98,7 +90,7 @@ def penrose(edge: float = 1.0, shift=None) -> CutProjectScheme:
     CutProjectScheme
         Internal space (perpendicular plane, level ι = Σ n_j); windows P, −τP, τP, −P on
         levels 1–4 with P = conv{e_j⊥}; density 1.231073 per edge²; module
-        k = (2/5) Σ h_j e_j∥ / edge² (docs/references.md, Quasicrystals). Indices h and h + (1,1,1,1,1) are the
+        k = (2/5) Σ h_j e_j∥ / edge² (docs/references.md). Indices h and h + (1,1,1,1,1) are the
         same module vector.
     """
     a = _edge(edge)
@@ -151,29 +143,9 @@ def icosahedral(edge: float = 1.0, shift=None) -> CutProjectScheme:
                             rational_form=(u, v, [a / norm] * 3, TAU), edge_length=a)
 
 
-def _model(scheme, radius, center, species):
-    return scheme.model(radius, center, species=species)
-
-
-def octagonal_model(radius, edge: float = 1.0, shift=None, center=None, species: str = "A"):
-    """A :class:`kinemap.Model` of an Ammann–Beenker patch of `radius` Å (see :func:`octagonal`)."""
-    return _model(octagonal(edge, shift), radius, center, species)
-
-
-def penrose_model(radius, edge: float = 1.0, shift=None, center=None, species: str = "A"):
-    """A :class:`kinemap.Model` of a Penrose rhombic patch of `radius` Å (see :func:`penrose`)."""
-    return _model(penrose(edge, shift), radius, center, species)
-
-
-def icosahedral_model(radius, edge: float = 1.0, shift=None, center=None, species: str = "A"):
-    """A :class:`kinemap.Model` of an icosahedral patch of `radius` Å (see :func:`icosahedral`)."""
-    return _model(icosahedral(edge, shift), radius, center, species)
-
-
 def fibonacci_ratio(n: int) -> tuple[int, int]:
     """(F_{n+1}, F_n) with F_1 = F_2 = 1: the n-th rational approximation of τ."""
-    if not isinstance(n, (int, np.integer)) or n < 1:
-        raise InvalidInputError(f"`n` must be an integer >= 1, got {n!r}")
+    n = whole_number(n, "n", minimum=1)
     a, b = 1, 1
     for _ in range(n - 1):
         a, b = a + b, a
@@ -182,8 +154,7 @@ def fibonacci_ratio(n: int) -> tuple[int, int]:
 
 def pell_ratio(n: int) -> tuple[int, int]:
     """(p, q) with p/q the n-th convergent of √2: 1/1, 3/2, 7/5, 17/12, …"""
-    if not isinstance(n, (int, np.integer)) or n < 1:
-        raise InvalidInputError(f"`n` must be an integer >= 1, got {n!r}")
+    n = whole_number(n, "n", minimum=1)
     p, q = 1, 1
     for _ in range(n - 1):
         p, q = p + 2 * q, p + q
@@ -210,8 +181,10 @@ def icosahedral_approximant(p: int, q: int, edge: float = 1.0, shift=None) -> Cu
         Periodic: cube edge 2(pτ + q)/√(2+τ)·edge; for p + q even the lattice is
         body-centred and :meth:`~CutProjectScheme.cell` gives primitive vectors.
     """
-    return icosahedral(edge, shift).approximant((int(p), int(q)), name=f"icosahedral {p}/{q} approximant")
+    p = whole_number(p, "p", minimum=1)
+    q = whole_number(q, "q", minimum=1)
+    return icosahedral(edge, shift).approximant((p, q), name=f"icosahedral {p}/{q} approximant")
 
 
-__all__ = ["octagonal", "penrose", "icosahedral", "octagonal_model", "penrose_model", "icosahedral_model",
-           "icosahedral_approximant", "fibonacci_ratio", "pell_ratio", "TAU", "SILVER", "metallic_mean"]
+__all__ = ["octagonal", "penrose", "icosahedral", "icosahedral_approximant", "fibonacci_ratio", "pell_ratio", "TAU",
+           "SILVER", "metallic_mean"]
