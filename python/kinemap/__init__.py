@@ -19,6 +19,7 @@ from .qgrid import QGrid
 from .scatter import KinematicApproximationWarning, scatter
 from .io import open_model, write_h5md
 from .frames import FrameAverages, average_frames
+from .compare import BraggExclusion, compare, delta_pdf, open_map, rank_models
 
 __all__ = [
     "__version__",
@@ -36,4 +37,9 @@ __all__ = [
     "write_h5md",
     "average_frames",
     "FrameAverages",
+    "compare",
+    "rank_models",
+    "open_map",
+    "delta_pdf",
+    "BraggExclusion",
 ]

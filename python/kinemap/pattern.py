@@ -261,8 +261,9 @@ def save_pattern(pattern: Pattern, path, *, keep_amplitude: bool = True, extra: 
     return final
 
 
-def load_pattern(path) -> Pattern:
-    """Read a map written by :meth:`Pattern.save`.
+def load_pattern(path, **options) -> Pattern:
+    """Read a map written by :meth:`Pattern.save`, or any NeXus NXdata map (a measured one:
+    see :func:`kinemap.compare.open_map` for the `options`, e.g. ``cell=`` for axes in h, k, l).
 
     Raises
     ------
@@ -281,9 +282,14 @@ def load_pattern(path) -> Pattern:
     except OSError as exc:
         raise ModelFileError(f"{str(p)!r} is not a readable HDF5 file: {exc}") from None
     with f:
-        for need in ("entry/data/intensity", "entry/grid/kind", "entry/grid/shape"):
-            if need not in f:
-                raise ModelFileError(f"{str(p)!r} is not a kinemap map: dataset '/{need}' is missing")
+        native = all(need in f for need in ("entry/data/intensity", "entry/grid/kind", "entry/grid/shape"))
+        if native and options:
+            raise InvalidInputError(f"{str(p)!r} is a kinemap map; options {sorted(options)} apply to other NeXus maps")
+    if not native:  # not written by kinemap: the generic NeXus NXdata reader
+        from .compare.nexus import read_nxdata
+
+        return read_nxdata(p, **options)
+    with h5py.File(p, "r") as f:
         gg = f["entry/grid"]
         kind = gg["kind"][()].decode() if isinstance(gg["kind"][()], bytes) else str(gg["kind"][()])
         shape = tuple(int(x) for x in gg["shape"][()])

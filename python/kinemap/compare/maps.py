@@ -1,0 +1,155 @@
+"""Maps as slabs: one interface for maps held in memory and maps read from files, so that
+every sum of a comparison runs the same way whether the map fits in memory or not."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+
+from .._shared.memory import available_memory
+from ..errors import InvalidInputError
+from ..pattern import Pattern
+from ..qgrid import QGrid
+from .nexus import MapSource, open_map
+
+#: Points per slab when a comparison walks through its maps.
+SLAB_POINTS = 1 << 21
+
+
+class ArrayMap:
+    """A Pattern seen as slabs along grid axis 0 (the interface of :class:`MapSource`)."""
+
+    def __init__(self, pattern: Pattern):
+        self.pattern = pattern
+        self.grid = pattern.grid
+        self.metadata = pattern.metadata
+
+    @property
+    def shape(self) -> tuple:
+        return tuple(self.grid.shape)
+
+    @property
+    def has_sigma(self) -> bool:
+        return self.pattern.sigma is not None
+
+    def slabs(self, rows: int):
+        total = self.shape[0]
+        for a in range(0, total, max(1, int(rows))):
+            b = min(total, a + rows)
+            sig = None if self.pattern.sigma is None else self.pattern.sigma[a:b]
+            yield a, b, self.pattern.intensity[a:b], sig
+
+    def read(self) -> Pattern:
+        return self.pattern
+
+
+def rows_per_slab(grid: QGrid) -> int:
+    """Rows of grid axis 0 per slab (about SLAB_POINTS points)."""
+    per_row = int(np.prod(grid.shape[1:], dtype=np.int64)) if len(grid.shape) > 1 else 1
+    return max(1, SLAB_POINTS // max(per_row, 1))
+
+
+def as_map(value, name: str, **open_options):
+    """A Pattern, MapSource or map-file path as a slab map (ArrayMap or MapSource)."""
+    if isinstance(value, Pattern):
+        m = ArrayMap(value)
+    elif isinstance(value, MapSource):
+        m = value
+    elif isinstance(value, (str, Path)):
+        m = open_map(value, **open_options)
+    else:
+        raise InvalidInputError(f"`{name}` must be a kinemap.Pattern, a MapSource or a map file path, "
+                                f"got {type(value).__name__}")
+    if len(m.shape) == 0:
+        raise InvalidInputError(f"`{name}` is a single point; a comparison needs a map")
+    return m
+
+
+def is_map_file(path) -> bool:
+    """True for an HDF5 file holding a map (kinemap's own or a NeXus NXdata group), or .npy."""
+    p = Path(path)
+    if p.suffix.lower() == ".npy":
+        return True
+    if not p.is_file():
+        return False
+    with open(p, "rb") as fh:
+        if fh.read(8) != b"\x89HDF\r\n\x1a\n":
+            return False
+    import h5py
+
+    try:
+        with h5py.File(p, "r") as f:
+            if "entry/data/intensity" in f:
+                return True
+            found = []
+            f.visititems(lambda n, o: found.append(n) if isinstance(o, h5py.Group)
+                         and str(o.attrs.get("NX_class", b"")).strip("b'") == "NXdata" else None)
+            return bool(found)
+    except OSError:
+        return False
+
+
+def should_stream(meas, stream) -> bool:
+    """Stream when asked, or (stream=None) when a file map would take over a quarter of the
+    available memory once held with its model, residual and masks (~6 arrays of float64)."""
+    if stream is not None and not isinstance(stream, bool):
+        raise InvalidInputError(f"`stream` must be True, False or None (decide by size), got {stream!r}")
+    if isinstance(meas, ArrayMap):
+        if stream:
+            raise InvalidInputError("`stream=True` applies to maps read from files (a path or MapSource); this "
+                                    "measured map is already in memory")
+        return False
+    if stream is not None:
+        return stream
+    need = meas.grid.size * 8 * 6
+    return need > available_memory() // 4
+
+
+def same_grid(a: QGrid, b: QGrid, what: str) -> None:
+    """Refuse two grids that do not hold the same q-points (naming the difference)."""
+    if tuple(a.shape) != tuple(b.shape):
+        raise InvalidInputError(f"{what}: the grids do not match: shape {tuple(a.shape)} vs {tuple(b.shape)}")
+    if a.is_regular != b.is_regular:
+        raise InvalidInputError(f"{what}: the grids do not match: one is regular ({a.kind}), the other arbitrary "
+                                f"q-points ({b.kind})")
+    if a.is_regular:
+        sa = np.asarray(a.steps, dtype=np.float64).reshape(len(a.shape), 3)
+        sb = np.asarray(b.steps, dtype=np.float64).reshape(len(b.shape), 3)
+        scale = max(1.0, float(np.abs(a.origin).max()), float(np.abs(sa).max(initial=0.0)) * max(a.shape))
+        tol = 1e-9 * scale
+        d = float(np.abs(a.origin - b.origin).max())
+        if d > tol:
+            raise InvalidInputError(f"{what}: the grids do not match: origins {np.round(a.origin, 6).tolist()} and "
+                                    f"{np.round(b.origin, 6).tolist()} (1/angstrom) differ by {d:.3g}")
+        for i in range(len(a.shape)):
+            d = float(np.abs(sa[i] - sb[i]).max()) * max(a.shape[i] - 1, 1)
+            if d > tol:
+                raise InvalidInputError(f"{what}: the grids do not match: step {i} is {np.round(sa[i], 8).tolist()} "
+                                        f"vs {np.round(sb[i], 8).tolist()} (1/angstrom)")
+    else:
+        qa, qb = a.q_vectors(), b.q_vectors()
+        d = float(np.abs(qa - qb).max()) if qa.size else 0.0
+        if d > 1e-9 * max(1.0, float(np.abs(qa).max())):
+            raise InvalidInputError(f"{what}: the grids do not match: the q-points differ by up to {d:.3g} 1/angstrom")
+
+
+class SlabMasks:
+    """Boolean masks of the slabs of a grid, kept as bits (1 bit per point) between passes."""
+
+    def __init__(self):
+        self._bits: dict[int, tuple[np.ndarray, tuple]] = {}
+
+    def __contains__(self, start: int) -> bool:
+        return start in self._bits
+
+    def put(self, start: int, mask: np.ndarray) -> None:
+        self._bits[start] = (np.packbits(np.ravel(mask)), mask.shape)
+
+    def get(self, start: int) -> np.ndarray:
+        bits, shape = self._bits[start]
+        return np.unpackbits(bits, count=int(np.prod(shape, dtype=np.int64))).astype(bool).reshape(shape)
+
+
+__all__ = ["ArrayMap", "as_map", "is_map_file", "should_stream", "same_grid", "rows_per_slab", "SlabMasks",
+           "SLAB_POINTS"]
