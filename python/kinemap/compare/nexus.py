@@ -308,6 +308,9 @@ def _file_cell(g, f) -> np.ndarray | None:
     parts = g.name.strip("/").split("/")
     scopes = [f[parts[0]]] if parts and parts[0] in f else []
     scopes.append(f)
+    for scope in scopes[:1]:  # kinemap's own layout (comparison files): <entry>/grid/cell, rows a, b, c
+        if isinstance(scope.get("grid/cell"), h5py.Dataset):
+            return as_cell(scope["grid/cell"][()])
     for scope in scopes:
         samples = []
         scope.visititems(lambda n, o: samples.append(o) if isinstance(o, h5py.Group) and _nx_class(o) == "NXsample"
@@ -464,6 +467,11 @@ def open_map(path, group: str | None = None, *, cell=None, fixed: dict | None = 
     with f:
         if grid is not None:
             return _open_plain(f, p, grid, signal, errors, group)
+        if group is None and signal is None and all(k in f for k in _NATIVE):
+            if cell is not None or fixed is not None or directions is not None:
+                raise InvalidInputError(f"{str(p)!r} is a kinemap map, whose grid is stored in it; `cell`, `fixed` "
+                                        "and `directions` apply to other NeXus maps")
+            return _open_native(f, p)
         g = _find_nxdata(f, p, group)
         sname = signal if signal is not None else _signal_name(g, p)
         sig = g.get(sname)
@@ -512,6 +520,30 @@ def open_map(path, group: str | None = None, *, cell=None, fixed: dict | None = 
                 "errors": epath or "", "axes": names, "axis_units": units,
                 "signal_units": _text(sig.attrs.get("units", ""))}
         return MapSource(p, qgrid, sig.name, epath, order=order, metadata=meta)
+
+
+_NATIVE = ("entry/data/intensity", "entry/grid/kind", "entry/grid/shape")
+
+
+def _open_native(f, p: Path) -> MapSource:
+    """A map written by kinemap: its grid from /entry/grid (the layout of kinemap.pattern)."""
+    gg = f["entry/grid"]
+    kind = _text(gg["kind"][()])
+    shape = tuple(int(x) for x in gg["shape"][()])
+    get = lambda n: np.asarray(gg[n][()], dtype=np.float64) if n in gg else None  # noqa: E731
+    names = [n for n in (_text(x) for x in np.asarray(gg["axis_names"][()]).reshape(-1)) if n]
+    units = [_text(x) for x in np.asarray(gg["axis_units"][()]).reshape(-1)][: len(names)] \
+        if "axis_units" in gg else [""] * len(names)
+    values = [np.asarray(gg[f"axis_values_{i}"][()]) for i in range(len(names))]
+    q = np.asarray(f["entry/data/q"][()]).reshape(-1, 3) if kind == "points" else None
+    grid = QGrid(kind=kind, shape=shape, origin=get("origin"), steps=get("steps"), q=q, cell=get("cell"),
+                 axis_names=names, axis_values=values, axis_units=units, hkl_origin=get("hkl_origin"),
+                 hkl_steps=get("hkl_steps"))
+    data = f["entry/data"]
+    err = data["intensity_errors"].name if "intensity_errors" in data else None
+    meta = {"source": "file", "file": str(p), "group": data.name, "signal": data["intensity"].name,
+            "errors": err or ""}
+    return MapSource(p, grid, data["intensity"].name, err, metadata=meta)
 
 
 def _open_plain(f, p: Path, grid: QGrid, signal, errors, group) -> MapSource:
