@@ -230,7 +230,9 @@ def test_streamed_comparison_equals_the_one_in_memory(maps, monkeypatch, tmp_pat
     b = mem.save(tmp_path / "m.h5")
     with h5py.File(a) as fa, h5py.File(b) as fb:
         for name in ("measured/intensity", "model/intensity", "residual/intensity", "residual/used"):
-            np.testing.assert_allclose(fa["entry/" + name][()], fb["entry/" + name][()], rtol=1e-12, equal_nan=True)
+            # residuals are differences of numbers ~100: compare to rounding of those
+            np.testing.assert_allclose(fa["entry/" + name][()], fb["entry/" + name][()], rtol=1e-12, atol=1e-10,
+                                       equal_nan=True)
 
 
 def test_streaming_refuses_what_needs_the_whole_map(maps):
