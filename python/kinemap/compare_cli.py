@@ -105,6 +105,19 @@ def _load_points(path: str, what: str) -> np.ndarray:
     return a
 
 
+def _load_mask(path: str) -> np.ndarray:
+    from .errors import ModelFileError
+
+    p = Path(path)
+    if not p.exists():
+        raise FileNotFoundError(f"--mask: no such file: {path!r}")
+    try:
+        m = np.load(p, allow_pickle=False)
+    except (ValueError, OSError) as exc:
+        raise ModelFileError(f"--mask {path!r} must be a .npy array of booleans ({exc})") from None
+    return m
+
+
 def _exclusion(args):
     given = [x for x in (args.centring, args.reflections, args.peaks) if x]
     if args.bragg_radius is None:
@@ -236,9 +249,7 @@ def run(args) -> int:
     for path in (out, png):
         if path is not None and path.exists() and not args.overwrite:
             raise FileExistsError(f"{str(path)!r} already exists; kinemap keeps it unless told to replace it (--overwrite)")
-    mask = None
-    if args.mask:
-        mask = _load_points(args.mask, "--mask") if not args.mask.endswith(".npy") else np.load(args.mask, allow_pickle=False)
+    mask = _load_mask(args.mask) if args.mask else None
     meas = _measured(args)
     calcs, names = _calcs(args)
     options = dict(scale=_scale(args.scale), background=args.background, mask=mask, symmetry=args.symmetry,
@@ -247,8 +258,9 @@ def run(args) -> int:
                    stream=True if args.stream else None, probe=args.probe, method=args.method, tol=args.tol,
                    threads=args.threads, chunk_atoms=args.chunk_atoms, progress=not args.no_progress,
                    **_probe_options(args))
-    _say(args, f"measured: {meas.path} {meas.grid.kind} {tuple(meas.grid.shape)}"
-               + (" with sigma" if meas.has_sigma else " (no sigma: unweighted fit, no chi2)"))
+    if not args.json:
+        _say(args, f"measured: {meas.path} {meas.grid.kind} {tuple(meas.grid.shape)}"
+                   + (" with sigma" if meas.has_sigma else " (no sigma: unweighted fit, no chi2)"))
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         if len(calcs) == 1:
