@@ -41,11 +41,13 @@ def files(tmp_path):
     frac = (cells[:, None, :] + fcc[None]).reshape(-1, 3)
     species = np.where(rng.random(len(frac)) < 0.4, "Ni", "Fe")
     box = np.eye(3) * 3 * A
-    right = km.Model(frac * A, species, box=box, cell=np.eye(3) * A)
+    # (H5MD stores one box per frame, which kinemap reads back as both box and cell)
+    right = km.Model(frac * A, species, box=box)
     km.write_h5md(tmp_path / "right.h5md", right)
-    wrong = km.Model(frac * A, "Fe", box=box, cell=np.eye(3) * A)  # no Ni: no diffuse scattering
+    wrong = km.Model(frac * A, "Fe", box=box)  # no Ni: no diffuse scattering
     km.write_h5md(tmp_path / "wrong.h5md", wrong)
     grid = km.QGrid.hkl(np.eye(3) * A, h=(-2, 2, 13), k=(-2, 2, 13), l=(0, 1, 4))  # box lattice steps
+    assert grid.is_commensurate(km.open_model(tmp_path / "right.h5md").box)
     truth = km.scatter(right, grid).intensity
     sig = 0.02 * truth + 1.0
     meas = 0.5 * truth + 2.0 + rng.normal(size=grid.shape) * sig

@@ -10,6 +10,7 @@ figures, and :mod:`kinemap.compare.sampling` for how a model is computed on the 
 from __future__ import annotations
 
 import math
+import time
 from collections.abc import Sequence
 from pathlib import Path
 
@@ -408,7 +409,9 @@ def _fit(meas, src, scale, background, extra, counts, prog):
 def _compare_one(meas: Measured, calc, *, scale, background, resolution, resolution_max, sampling,
                  scatter_options, progress) -> Comparison:
     check_background(background)
+    t0 = time.perf_counter()
     src, info = _calc_source(calc, meas, sampling=sampling, scatter_options=scatter_options, progress=progress)
+    t1 = time.perf_counter()
     prog = Progress(progress, 0, unit="slab", desc="comparing")
     counts = dict.fromkeys(EXCLUSION_REASONS, 0)
     width, fitted_w = None, False
@@ -430,6 +433,7 @@ def _compare_one(meas: Measured, calc, *, scale, background, resolution, resolut
     finally:
         prog.close()
     md = dict(info)
+    md["timings"] = {"model_s": t1 - t0, "fit_s": time.perf_counter() - t1}
     md.update({"measured": meas.source_description(), "symmetry": meas.symmetry_info,
                "exclude_bragg": meas.exclusion.describe() if meas.exclusion else {},
                "resolution_fitted": fitted_w, "streamed": meas.streamed,

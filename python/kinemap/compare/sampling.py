@@ -181,6 +181,7 @@ def _snap(model, grid: QGrid, scatter_options, progress):
     pinv = np.linalg.pinv(st.T)  # (nd, 3): index coordinates of a q offset
     out = np.empty(grid.size)
     shift = 0.0
+    used = np.zeros(snapped.size, dtype=bool)
     blk = 1 << 20
     flat = inten.reshape(-1)
     sshape = np.array(snapped.shape)
@@ -190,12 +191,17 @@ def _snap(model, grid: QGrid, scatter_options, progress):
         k = np.clip(np.round(t).astype(np.int64), 0, sshape - 1)
         qs = snapped.origin + k @ st
         shift = max(shift, float(np.linalg.norm(q - qs, axis=1).max()))
-        out[i:i + blk] = flat[np.ravel_multi_index(tuple(k.T), tuple(sshape))]
+        j = np.ravel_multi_index(tuple(k.T), tuple(sshape))
+        used[j] = True
+        out[i:i + blk] = flat[j]
+    share = grid.size / max(int(used.sum()), 1)
     info = dict(meta["sampling"])
     info.update({"mode": "snap", "max_shift": shift, "snapped_shape": list(snapped.shape),
+                 "measured_points_per_model_point": share,
                  "description": ("the grid is not on the box's reciprocal lattice: the model was computed on the "
                                  "nearest commensurate grid, averaged over its voxels, and each measured point took "
-                                 f"its nearest snapped point (moved up to {shift:.3g} 1/angstrom)")})
+                                 f"its nearest snapped point (moved up to {shift:.3g} 1/angstrom; "
+                                 f"{share:.3g} measured points per model point)")})
     return out.reshape(grid.shape), {"scatter": meta["scatter"], "sampling": info}
 
 
