@@ -7,7 +7,8 @@ measurement, 0.02·I + 3 + Gaussian noise (σ = 1 % + 0.5), with a beamstop (|q|
 two detector gaps as NaN, written as NeXus NXdata with h5py (h, k, l axes, errors, NXsample
 cell). The model's own map is saved too.
 
-Each case then runs in a fresh child process (its peak resident memory is ``ru_maxrss``):
+Each case then runs in a fresh child process (its peak resident memory is VmHWM from
+/proc/self/status; ru_maxrss would keep the parent's peak across exec):
 
 * model: ``km.compare(open_model(model.h5md), "measured.h5", exclude_bragg=F centring)`` and
   ``cmp.save(...)`` — reading the measurement, computing the model on the measured grid
@@ -91,8 +92,20 @@ def setup(folder: Path, cells: int, points: int, seed: int = 0) -> dict:
 
 
 CHILD = r"""
-import json, resource, sys, time
+import json, sys, time
 import kinemap as km
+
+
+def peak_mb():
+    # VmHWM: this process's own high-water mark (ru_maxrss keeps the parent's across exec)
+    with open("/proc/self/status") as fh:
+        for line in fh:
+            if line.startswith("VmHWM:"):
+                return int(line.split()[1]) / 1024
+    return float("nan")
+
+
+
 folder, case = sys.argv[1], sys.argv[2]
 ex = {"radius": 0.05, "units": "r.l.u.", "centring": "F"}
 t0 = time.perf_counter()
@@ -109,7 +122,7 @@ print(json.dumps({"case": case, "compare_s": t1 - t0, "save_s": t2 - t1, "wall_s
                   "timings": cmp.metadata.get("timings", {}), "chi2": cmp.chi2, "scale": cmp.scale,
                   "background": cmp.background, "n_points": cmp.n_points,
                   "sampling": cmp.metadata.get("model_sampling", {}).get("mode", ""),
-                  "peak_rss_mb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024}))
+                  "peak_rss_mb": peak_mb()}))
 """
 
 

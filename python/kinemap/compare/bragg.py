@@ -177,15 +177,18 @@ class ExclusionTree:
             raise InvalidInputError("the Bragg exclusion is in h, k, l but the grid has no cell; give `cell` in the "
                                     "exclusion (or build the grid with QGrid.hkl)")
         self.cell = cell
+        # Centring reflections within less than half a reciprocal-lattice unit: the only
+        # candidate for a point is its nearest integer h, k, l (rounding), no tree needed.
+        self.by_rounding = ex.centring is not None and ex.units == "r.l.u." and ex.radius < 0.5
         peaks = []  # in q (Å⁻¹)
-        if ex.centring is not None:
+        if ex.centring is not None and not self.by_rounding:
             peaks.append(self._centring_peaks(cell))
         if ex.hkl is not None:
             peaks.append(self._to_q(ex.hkl))
         if ex.q is not None:
             peaks.append(ex.q)
         q = np.concatenate(peaks) if peaks else np.zeros((0, 3))
-        self.n_peaks = len(q)
+        self.n_peaks = len(q)  # (reflections found by rounding are not counted)
         pts = self._metric(q)
         self.tree = cKDTree(pts) if len(pts) else None
 
@@ -195,7 +198,7 @@ class ExclusionTree:
     def _metric(self, q: np.ndarray) -> np.ndarray:
         """Coordinates in which the exclusion distance is Euclidean."""
         if self.ex.units == "r.l.u.":
-            return q @ self.cell.T / (2.0 * np.pi)
+            return np.einsum("ij,kj->ik", q, self.cell / (2.0 * np.pi))
         return q
 
     def _centring_peaks(self, cell) -> np.ndarray:
@@ -218,10 +221,22 @@ class ExclusionTree:
 
     def excluded(self, q: np.ndarray) -> np.ndarray:
         """True for q-points (M, 3) within the radius of a reflection."""
-        if self.tree is None or len(q) == 0:
-            return np.zeros(len(q), dtype=bool)
-        d, _ = self.tree.query(self._metric(q), k=1, distance_upper_bound=self.ex.radius * (1 + 1e-12))
-        return np.isfinite(d)
+        out = np.zeros(len(q), dtype=bool)
+        if len(q) == 0:
+            return out
+        r = self.ex.radius * (1 + 1e-12)
+        if self.by_rounding:
+            # einsum rather than BLAS: no thread pool for a (M, 3)·(3, 3) product
+            hkl = np.einsum("ij,kj->ik", q, self.cell / (2.0 * np.pi))
+            n = np.rint(hkl)
+            hkl -= n
+            near = np.einsum("ij,ij->i", hkl, hkl) <= r * r
+            idx = np.flatnonzero(near)
+            out[idx] = allowed_by_centring(n[idx].astype(np.int64), self.ex.centring)
+        if self.tree is not None:
+            d, _ = self.tree.query(self._metric(q), k=1, distance_upper_bound=r)
+            out |= np.isfinite(d)
+        return out
 
 
 def bragg_mask(grid: QGrid, exclusion) -> np.ndarray:

@@ -24,7 +24,7 @@ from ..pattern import Pattern
 from ..qgrid import QGrid
 from .agreement import DEFINITIONS, Agreement, Block, ShellTable, check_background, fit_blocks
 from .bragg import BraggExclusion, ExclusionTree
-from .maps import ArrayMap, SlabMasks, as_map, is_map_file, rows_per_slab, same_grid, should_stream
+from .maps import ArrayMap, SlabMasks, SlabQ, as_map, is_map_file, rows_per_slab, same_grid, should_stream
 from .nexus import MapSource
 from .sampling import gaussian_resolution, model_on_grid
 
@@ -97,6 +97,7 @@ class Measured:
         self.per_row = int(np.prod(self.grid.shape[1:], dtype=np.int64)) if len(self.grid.shape) > 1 else 1
         self.q_ref = _q_ref(self.grid)
         self._bragg = SlabMasks()
+        self.slab_q = SlabQ(self.grid)
 
     @property
     def weighted(self) -> bool:
@@ -143,7 +144,7 @@ def walk(meas: Measured, calc_src, counts: dict | None = None, progress: Progres
                 raise InvalidInputError(f"the measured map's sigma is negative at index {tuple(int(i) for i in j)}: "
                                         f"{float(so[neg][0])!r}; uncertainties are >= 0 (mark unmeasured points "
                                         "with NaN intensity)")
-        qv = meas.grid.q_vectors(fa, fb)
+        qv = meas.slab_q.get(a, b, meas.per_row)
         q = np.sqrt(np.einsum("ij,ij->i", qv, qv))
         keep = np.isfinite(io)
         if counts is not None:

@@ -134,6 +134,28 @@ def same_grid(a: QGrid, b: QGrid, what: str) -> None:
             raise InvalidInputError(f"{what}: the grids do not match: the q-points differ by up to {d:.3g} 1/angstrom")
 
 
+class SlabQ:
+    """q-vectors of slabs of grid rows, fast for regular grids (the points of one row-block
+    are the same offsets from each row's start)."""
+
+    def __init__(self, grid: QGrid):
+        self.grid = grid
+        self._rest = None
+        if grid.is_regular and len(grid.shape) > 1:
+            tail = tuple(grid.shape[1:])
+            st = np.asarray(grid.steps, dtype=np.float64).reshape(len(grid.shape), 3)[1:]
+            idx = np.indices(tail).reshape(len(tail), -1).T.astype(np.float64)
+            self._rest = idx @ st  # (rows' points, 3)
+
+    def get(self, a: int, b: int, per_row: int) -> np.ndarray:
+        g = self.grid
+        if self._rest is None:
+            return g.q_vectors(a * per_row, b * per_row)
+        st0 = np.asarray(g.steps, dtype=np.float64).reshape(len(g.shape), 3)[0]
+        starts = g.origin + np.arange(a, b, dtype=np.float64)[:, None] * st0
+        return (starts[:, None, :] + self._rest[None, :, :]).reshape(-1, 3)
+
+
 class SlabMasks:
     """Boolean masks of the slabs of a grid, kept as bits (1 bit per point) between passes."""
 
@@ -151,5 +173,5 @@ class SlabMasks:
         return np.unpackbits(bits, count=int(np.prod(shape, dtype=np.int64))).astype(bool).reshape(shape)
 
 
-__all__ = ["ArrayMap", "as_map", "is_map_file", "should_stream", "same_grid", "rows_per_slab", "SlabMasks",
+__all__ = ["ArrayMap", "as_map", "is_map_file", "should_stream", "same_grid", "rows_per_slab", "SlabMasks", "SlabQ",
            "SLAB_POINTS"]
