@@ -147,7 +147,8 @@ def test_a_plane_gives_a_projection(tmp_path):
     sites = np.argwhere(np.ones(occ.shape, bool)) * A
     model = km.Model(sites, np.where(occ.reshape(-1), "B", "A"), box=np.eye(3) * A * n, cell=np.eye(3) * A)
     h = (-0.5, 0.5 - 1 / n, n)
-    pat = km.scatter(model, km.QGrid.hkl(model.cell, h=h, k=h, l=0.0), probe=CustomProbe(constants={"A": 1.0, "B": 3.0}))
+    probe = CustomProbe(constants={"A": 1.0, "B": 3.0})
+    pat = km.scatter(model, km.QGrid.hkl(model.cell, h=h, k=h, l=0.0), probe=probe)
     d = delta_pdf(pat, PUNCH, apodize=False)
     assert d.axis_names == ["u", "v"] and d.metadata["projection"] == "along w"
     # the l = 0 plane transforms to Σ_w of the 3-D autocorrelation (the projection along c)

@@ -41,14 +41,16 @@ _EXAMPLES = """examples:
 def add_parsers(subparsers) -> argparse.ArgumentParser:
     """Add the ``compare`` command to the ``kinemap`` sub-command parsers."""
     fmt = argparse.RawDescriptionHelpFormatter
-    p = subparsers.add_parser("compare", help="compare a measured map with models: scale, background, R factors, residual",
+    p = subparsers.add_parser("compare",
+                              help="compare a measured map with models: scale, background, R factors, residual",
                               description=_DESCRIPTION, epilog=_EXAMPLES + "\n\n" + _EPILOG_CODES,
                               formatter_class=fmt)
     p.add_argument("measured", help="measured map: NeXus NXdata (HDF5), plain HDF5 with --signal, or .npy")
     p.add_argument("calc", nargs="+", help="model map(s) on the same grid, or model file(s)")
     g = p.add_argument_group("measured map")
     g.add_argument("--group", metavar="PATH", help="NXdata group in the file (default: follow 'default' attributes)")
-    g.add_argument("--signal", metavar="DATASET", help="plain HDF5: the intensity dataset (give the grid with the grid options)")
+    g.add_argument("--signal", metavar="DATASET",
+                   help="plain HDF5: the intensity dataset (give the grid with the grid options)")
     g.add_argument("--errors", metavar="DATASET", help="dataset (or .npy file) of standard uncertainties")
     g.add_argument("--fixed", metavar="X=V", help="value of h, k or l that is not an axis of the map, e.g. l=0")
     g.add_argument("--mask", metavar="FILE.npy", help="boolean .npy of the map's shape, True = leave out")
@@ -59,12 +61,14 @@ def add_parsers(subparsers) -> argparse.ArgumentParser:
                    help="background: none, flat (default) or a polynomial in |q|")
     f.add_argument("--symmetry", metavar="GROUP", help="average both maps over this point group first, e.g. m-3m")
     f.add_argument("--bragg-radius", type=float, metavar="R", help="leave out points within R of allowed reflections")
-    f.add_argument("--bragg-units", choices=["r.l.u.", "rlu", "1/angstrom"], help="units of --bragg-radius (required with it)")
+    f.add_argument("--bragg-units", choices=["r.l.u.", "rlu", "1/angstrom"],
+                   help="units of --bragg-radius (required with it)")
     f.add_argument("--centring", choices=["P", "A", "B", "C", "I", "F", "R"],
                    help="allowed reflections from the lattice centring")
     f.add_argument("--reflections", metavar="FILE", help="allowed reflections h k l (text, 3 columns, or .npy)")
     f.add_argument("--peaks", metavar="FILE", help="peak positions in 1/angstrom (text, 3 columns, or .npy)")
-    f.add_argument("--resolution", metavar="W|fit", help="Gaussian resolution of the model (sigma, 1/angstrom) or 'fit'")
+    f.add_argument("--resolution", metavar="W|fit",
+                   help="Gaussian resolution of the model (sigma, 1/angstrom) or 'fit'")
     f.add_argument("--resolution-max", type=float, metavar="W", help="largest width tried by --resolution fit")
     f.add_argument("--sampling", default="auto", choices=["auto", "average", "centres", "snap", "points"],
                    help="how a model is computed on the measured grid (default auto)")
@@ -248,7 +252,8 @@ def run(args) -> int:
     png = _check_writable(out.with_suffix(".png"), "picture") if args.png else None
     for path in (out, png):
         if path is not None and path.exists() and not args.overwrite:
-            raise FileExistsError(f"{str(path)!r} already exists; kinemap keeps it unless told to replace it (--overwrite)")
+            raise FileExistsError(f"{str(path)!r} already exists; kinemap keeps it unless told to replace it "
+                                  "(--overwrite)")
     mask = _load_mask(args.mask) if args.mask else None
     meas = _measured(args)
     calcs, names = _calcs(args)

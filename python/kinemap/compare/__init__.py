@@ -13,11 +13,15 @@ residual maps, rankings of models and the 3D-ΔPDF.
 * :func:`delta_pdf` gives the 3D-ΔPDF (Weber & Simonov 2012) of a map.
 """
 
-from .agreement import BACKGROUNDS, DEFINITIONS, Agreement, FitWarning, ShellTable, agreement
+from .agreement import BACKGROUNDS, FitWarning, agreement
 from .bragg import CENTRINGS, BraggExclusion, allowed_by_centring, bragg_mask
-from .core import Comparison, Ranking, compare, rank_models
+from .comparison import Comparison
+from .core import compare
 from .dpdf import DeltaPDF, delta_pdf
-from .nexus import MapSource, open_map, read_nxdata
+from .figures import DEFINITIONS, Agreement, ShellTable
+from .maps import MapSource
+from .nexus import open_map, read_nxdata
+from .ranking import Ranking, rank_models
 from .output import comparison_figure, plot_comparison, save_comparison
 from .sampling import SAMPLINGS, gaussian_resolution, model_on_grid
 

@@ -7,14 +7,117 @@ from pathlib import Path
 
 import numpy as np
 
-from .._shared.memory import available_memory
-from ..errors import InvalidInputError
+from .._shared.memory import available_memory, check_fits
+from ..errors import InvalidInputError, ModelFileError
 from ..pattern import Pattern
 from ..qgrid import QGrid
-from .nexus import MapSource, open_map
 
 #: Points per slab when a comparison walks through its maps.
 SLAB_POINTS = 1 << 21
+
+
+class MapSource:
+    """A map in a file: its grid, and its values read whole or in slabs.
+
+    Attributes
+    ----------
+    path : Path
+    grid : QGrid
+        The grid of the map (axis 0 of the grid is the slab axis).
+    signal, errors : str
+        Dataset paths in the file (errors may be None); for .npy files the file names.
+    shape : tuple
+        ``grid.shape``.
+    metadata : dict
+        Where the map came from (file, group, dataset and axis names, units).
+    """
+
+    def __init__(self, path: Path, grid: QGrid, signal: str, errors: str | None, *, order=None,
+                 kind: str = "hdf5", metadata: dict | None = None, errors_file: Path | None = None):
+        self.path = Path(path)
+        self.grid = grid
+        self.signal = signal
+        self.errors = errors
+        self.kind = kind
+        self.errors_file = errors_file
+        nd = len(grid.shape)
+        self.order = tuple(range(nd)) if order is None else tuple(int(i) for i in order)
+        self.metadata = dict(metadata or {})
+
+    @property
+    def shape(self) -> tuple:
+        return tuple(self.grid.shape)
+
+    @property
+    def has_sigma(self) -> bool:
+        return self.errors is not None
+
+    def __repr__(self) -> str:
+        return f"MapSource({str(self.path)!r}, signal={self.signal!r}, shape={self.shape}, grid={self.grid.kind!r})"
+
+    # -- reading ---------------------------------------------------------------------
+    def _file_selection(self, start: int, stop: int) -> tuple:
+        nd = len(self.order)
+        sel = [slice(None)] * nd
+        if nd:
+            sel[self.order[0]] = slice(start, stop)
+        return tuple(sel)
+
+    def _to_grid_order(self, a: np.ndarray) -> np.ndarray:
+        if self.order != tuple(range(len(self.order))):
+            a = np.transpose(a, self.order)
+        return np.ascontiguousarray(a, dtype=np.float64)
+
+    def _read(self, start: int, stop: int):
+        sel = self._file_selection(start, stop)
+        if self.kind == "npy":
+            data = np.load(self.path, mmap_mode="r", allow_pickle=False)
+            inten = self._to_grid_order(np.asarray(data[sel]))
+            sig = None
+            if self.errors_file is not None:
+                err = np.load(self.errors_file, mmap_mode="r", allow_pickle=False)
+                sig = self._to_grid_order(np.asarray(err[sel]))
+            return inten, sig
+        import h5py
+
+        try:
+            with h5py.File(self.path, "r") as f:
+                inten = self._to_grid_order(f[self.signal][sel])
+                sig = None if self.errors is None else self._to_grid_order(f[self.errors][sel])
+        except OSError as exc:
+            raise ModelFileError(f"{str(self.path)!r}: cannot read '{self.signal}': {exc}") from None
+        return inten, sig
+
+    def read(self) -> Pattern:
+        """The whole map as a Pattern (refused, with the estimate, when it cannot fit in memory)."""
+        n = self.grid.size
+        check_fits(n * 8 * (3 if self.has_sigma else 2), f"the map {str(self.path)!r} ({self.shape})",
+                   hint="compare it by slabs: pass the MapSource to kinemap.compare with stream=True")
+        rows = self.shape[0] if self.shape else 1
+        inten, sig = self._read(0, rows)
+        return map_pattern(self.grid, inten.reshape(self.shape), None if sig is None else sig.reshape(self.shape),
+                        self.metadata)
+
+    def slabs(self, rows: int):
+        """Yield ``(start, stop, intensity, sigma)`` for slabs of `rows` rows of grid axis 0
+        (intensity and sigma in grid order; sigma None without errors)."""
+        total = self.shape[0] if self.shape else 1
+        rows = max(1, int(rows))
+        for a in range(0, total, rows):
+            b = min(total, a + rows)
+            inten, sig = self._read(a, b)
+            yield a, b, inten, sig
+
+
+def map_pattern(grid, inten, sig, meta) -> Pattern:
+    if sig is not None:
+        neg = sig < 0
+        if neg.any():
+            j = np.unravel_index(int(np.flatnonzero(neg)[0]), sig.shape)
+            raise InvalidInputError(f"the uncertainties of {meta.get('file', 'the map')!r} are negative at index "
+                                    f"{tuple(int(i) for i in j)}: {float(sig[j])!r}")
+    m = dict(meta)
+    return Pattern(grid, intensity=inten, sigma=sig, metadata=m, units="1")
 
 
 class ArrayMap:
@@ -57,6 +160,8 @@ def as_map(value, name: str, **open_options):
     elif isinstance(value, MapSource):
         m = value
     elif isinstance(value, (str, Path)):
+        from .nexus import open_map
+
         m = open_map(value, **open_options)
     else:
         raise InvalidInputError(f"`{name}` must be a kinemap.Pattern, a MapSource or a map file path, "
@@ -173,5 +278,6 @@ class SlabMasks:
         return np.unpackbits(bits, count=int(np.prod(shape, dtype=np.int64))).astype(bool).reshape(shape)
 
 
-__all__ = ["ArrayMap", "as_map", "is_map_file", "should_stream", "same_grid", "rows_per_slab", "SlabMasks", "SlabQ",
+__all__ = ["MapSource", "map_pattern", "ArrayMap", "as_map", "is_map_file", "should_stream", "same_grid",
+           "rows_per_slab", "SlabMasks", "SlabQ",
            "SLAB_POINTS"]

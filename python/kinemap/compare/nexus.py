@@ -33,12 +33,12 @@ from pathlib import Path
 
 import numpy as np
 
-from .._shared.memory import check_fits
 from .._shared.validate import file_name
 from ..errors import InvalidInputError, ModelFileError
 from ..model import as_cell, cell_from_parameters
 from ..pattern import Pattern
 from ..qgrid import QGrid
+from .maps import MapSource
 
 _RLU_UNITS = {"r.l.u.", "rlu", "r.l.u", "reciprocal lattice units", "reciprocal_lattice_units"}
 _NO_UNITS = {"", "1", "dimensionless", "none", "."}
@@ -71,110 +71,6 @@ def _texts(v) -> list[str]:
 
 def _nx_class(obj) -> str:
     return _text(obj.attrs.get("NX_class", ""))
-
-
-class MapSource:
-    """A map in a file: its grid, and its values read whole or in slabs.
-
-    Attributes
-    ----------
-    path : Path
-    grid : QGrid
-        The grid of the map (axis 0 of the grid is the slab axis).
-    signal, errors : str
-        Dataset paths in the file (errors may be None); for .npy files the file names.
-    shape : tuple
-        ``grid.shape``.
-    metadata : dict
-        Where the map came from (file, group, dataset and axis names, units).
-    """
-
-    def __init__(self, path: Path, grid: QGrid, signal: str, errors: str | None, *, order=None,
-                 kind: str = "hdf5", metadata: dict | None = None, errors_file: Path | None = None):
-        self.path = Path(path)
-        self.grid = grid
-        self.signal = signal
-        self.errors = errors
-        self.kind = kind
-        self.errors_file = errors_file
-        nd = len(grid.shape)
-        self.order = tuple(range(nd)) if order is None else tuple(int(i) for i in order)
-        self.metadata = dict(metadata or {})
-
-    @property
-    def shape(self) -> tuple:
-        return tuple(self.grid.shape)
-
-    @property
-    def has_sigma(self) -> bool:
-        return self.errors is not None
-
-    def __repr__(self) -> str:
-        return f"MapSource({str(self.path)!r}, signal={self.signal!r}, shape={self.shape}, grid={self.grid.kind!r})"
-
-    # -- reading ---------------------------------------------------------------------
-    def _file_selection(self, start: int, stop: int) -> tuple:
-        nd = len(self.order)
-        sel = [slice(None)] * nd
-        if nd:
-            sel[self.order[0]] = slice(start, stop)
-        return tuple(sel)
-
-    def _to_grid_order(self, a: np.ndarray) -> np.ndarray:
-        if self.order != tuple(range(len(self.order))):
-            a = np.transpose(a, self.order)
-        return np.ascontiguousarray(a, dtype=np.float64)
-
-    def _read(self, start: int, stop: int):
-        sel = self._file_selection(start, stop)
-        if self.kind == "npy":
-            data = np.load(self.path, mmap_mode="r", allow_pickle=False)
-            inten = self._to_grid_order(np.asarray(data[sel]))
-            sig = None
-            if self.errors_file is not None:
-                err = np.load(self.errors_file, mmap_mode="r", allow_pickle=False)
-                sig = self._to_grid_order(np.asarray(err[sel]))
-            return inten, sig
-        import h5py
-
-        try:
-            with h5py.File(self.path, "r") as f:
-                inten = self._to_grid_order(f[self.signal][sel])
-                sig = None if self.errors is None else self._to_grid_order(f[self.errors][sel])
-        except OSError as exc:
-            raise ModelFileError(f"{str(self.path)!r}: cannot read '{self.signal}': {exc}") from None
-        return inten, sig
-
-    def read(self) -> Pattern:
-        """The whole map as a Pattern (refused, with the estimate, when it cannot fit in memory)."""
-        n = self.grid.size
-        check_fits(n * 8 * (3 if self.has_sigma else 2), f"the map {str(self.path)!r} ({self.shape})",
-                   hint="compare it by slabs: pass the MapSource to kinemap.compare with stream=True")
-        rows = self.shape[0] if self.shape else 1
-        inten, sig = self._read(0, rows)
-        return _pattern(self.grid, inten.reshape(self.shape), None if sig is None else sig.reshape(self.shape),
-                        self.metadata)
-
-    def slabs(self, rows: int):
-        """Yield ``(start, stop, intensity, sigma)`` for slabs of `rows` rows of grid axis 0
-        (intensity and sigma in grid order; sigma None without errors)."""
-        total = self.shape[0] if self.shape else 1
-        rows = max(1, int(rows))
-        for a in range(0, total, rows):
-            b = min(total, a + rows)
-            inten, sig = self._read(a, b)
-            yield a, b, inten, sig
-
-
-def _pattern(grid, inten, sig, meta) -> Pattern:
-    if sig is not None:
-        neg = sig < 0
-        if neg.any():
-            j = np.unravel_index(int(np.flatnonzero(neg)[0]), sig.shape)
-            raise InvalidInputError(f"the uncertainties of {meta.get('file', 'the map')!r} are negative at index "
-                                    f"{tuple(int(i) for i in j)}: {float(sig[j])!r}")
-    m = dict(meta)
-    return Pattern(grid, intensity=inten, sigma=sig, metadata=m, units="1")
 
 
 # ---------------------------------------------------------------------------------------
@@ -234,7 +130,8 @@ def _signal_name(g, path: Path) -> str:
     if name is not None:
         name = _text(name)
         if not isinstance(g.get(name), h5py.Dataset):
-            raise ModelFileError(f"{str(path)!r}: NXdata '{g.name}' names signal {name!r}, which is not a dataset in it")
+            raise ModelFileError(f"{str(path)!r}: NXdata '{g.name}' names signal {name!r}, which is not a dataset "
+                                 "in it")
         return name
     for key, item in g.items():  # older convention: the dataset with attribute signal=1
         if isinstance(item, h5py.Dataset) and _text(item.attrs.get("signal", "")) == "1":
@@ -339,7 +236,8 @@ def _hkl_grid(g, f, path, names, values, cell, fixed):
         if key in idx.values():
             key = None
         if key is None:
-            raise ModelFileError(f"{str(path)!r}: cannot tell which of h, k, l the axis '{name}' is; name the axes h, k, l")
+            raise ModelFileError(f"{str(path)!r}: cannot tell which of h, k, l the axis '{name}' is; name the axes "
+                                 "h, k, l")
         idx[d] = key
     if cell is None:
         cell = _file_cell(g, f)

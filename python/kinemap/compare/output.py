@@ -77,7 +77,8 @@ def _grid_group(entry, grid) -> None:
         val = getattr(grid, name)
         if val is not None:
             d = gg.create_dataset(name, data=np.asarray(val, dtype=np.float64))
-            d.attrs["units"] = {"cell": "angstrom", "hkl_origin": "r.l.u.", "hkl_steps": "r.l.u."}.get(name, "1/angstrom")
+            units = {"cell": "angstrom", "hkl_origin": "r.l.u.", "hkl_steps": "r.l.u."}
+            d.attrs["units"] = units.get(name, "1/angstrom")
     gg.create_dataset("axis_names", data=np.array(grid.axis_names or [""], dtype=h5py.string_dtype()))
     if grid.cell is not None:
         c = np.asarray(grid.cell)

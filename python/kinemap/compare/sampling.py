@@ -168,7 +168,8 @@ def _nearest_lattice(model, grid: QGrid, scatter_options, progress):
     shift = float(np.linalg.norm(q - qs, axis=1).max()) if len(q) else 0.0
     pat = scatter(model, QGrid.points(qs.reshape(tuple(grid.shape) + (3,))), progress=progress, **scatter_options)
     info = {"mode": "snap", "max_shift": shift,
-            "description": f"each q-point took the model at its nearest box-lattice point (moved up to {shift:.3g} 1/angstrom)"}
+            "description": ("each q-point took the model at its nearest box-lattice point (moved up to "
+                            f"{shift:.3g} 1/angstrom)")}
     return pat.intensity, {"scatter": pat.metadata, "sampling": info}
 
 
@@ -259,7 +260,8 @@ def model_on_grid(model, grid: QGrid, *, sampling: str = "auto", progress=False,
                                 "grid.snapped(model.box)")
     if sampling == "centres":
         pat = scatter(model, grid, progress=progress, **opts)
-        info = {"mode": "centres", "description": "computed at the voxel centres, which lie on the box's reciprocal lattice"}
+        info = {"mode": "centres",
+                "description": "computed at the voxel centres, which lie on the box's reciprocal lattice"}
         return _result(grid, pat.intensity, {"scatter": pat.metadata, "sampling": info})
     if sampling == "average":
         return _result(grid, *voxel_average(model, grid, progress=progress, **opts))
