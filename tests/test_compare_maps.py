@@ -255,3 +255,15 @@ def test_files_are_not_modified_and_outputs_are_new(maps, tmp_path):
     with pytest.raises(InvalidInputError, match="also an input"):
         cmp.save(mpath, overwrite=True)
     assert os.stat(mpath).st_mtime_ns == before
+
+
+def test_large_file_maps_stream_unless_something_needs_them_whole(maps, monkeypatch):
+    # Left to decide (stream=None), maps read from files go by slabs when they would not fit
+    # comfortably in memory; a model to compute on the grid needs the map whole.
+    grid, mpath, cpath, calc = maps
+    maps_mod = importlib.import_module("kinemap.compare.maps")
+    monkeypatch.setattr(maps_mod, "available_memory", lambda: 4 * grid.size * 8)  # "too small"
+    assert km.compare(cpath, mpath).metadata["streamed"]
+    model = km.Model(np.zeros((1, 3)), "Fe", box=np.eye(3) * 4.0)
+    assert not km.compare(model, mpath, background="none").metadata["streamed"]
+    assert not km.compare(cpath, mpath, stream=False).metadata["streamed"]

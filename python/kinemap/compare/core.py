@@ -43,6 +43,14 @@ def _is_model(value) -> bool:
     return all(hasattr(value, a) for a in ("iter_chunks", "species_labels", "describe"))
 
 
+def needs_memory(calcs, symmetry, resolution) -> bool:
+    """Whether a comparison needs the maps whole: a model to compute on the measured grid,
+    a symmetry average or a resolution convolution."""
+    if symmetry is not None or resolution is not None:
+        return True
+    return any(_is_model(c) or (isinstance(c, (str, Path)) and not is_map_file(c)) for c in calcs)
+
+
 def _calc_source(calc, meas: Measured, *, sampling, scatter_options, progress):
     """The model's map on the measured grid, as a slab map, and how it was made."""
     if isinstance(calc, (str, Path)) and not is_map_file(calc):
@@ -232,7 +240,8 @@ def compare(calc, meas, *, scale="fit", background="flat", mask=None, symmetry=N
                      stream=stream, keep="best", **options)
     if names is not None or by is not None:
         raise InvalidInputError("`names` and `by` apply when `calc` is a list of models")
-    m = Measured(meas, mask=mask, exclude_bragg=exclude_bragg, symmetry=symmetry, stream=stream)
+    m = Measured(meas, mask=mask, exclude_bragg=exclude_bragg, symmetry=symmetry, stream=stream,
+                 needs_memory=needs_memory([calc], symmetry, resolution))
     return _compare_one(m, calc, **options)
 
 

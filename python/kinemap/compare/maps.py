@@ -188,8 +188,13 @@ def is_map_file(path) -> bool:
             if "entry/data/intensity" in f:
                 return True
             found = []
-            f.visititems(lambda n, o: found.append(n) if isinstance(o, h5py.Group)
-                         and str(o.attrs.get("NX_class", b"")).strip("b'") == "NXdata" else None)
+
+            def visit(name, obj):
+                cls = obj.attrs.get("NX_class", "") if isinstance(obj, h5py.Group) else ""
+                if (cls.decode() if isinstance(cls, bytes) else str(cls)) == "NXdata":
+                    found.append(name)
+
+            f.visititems(visit)
             return bool(found)
     except OSError:
         return False

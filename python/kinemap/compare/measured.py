@@ -54,8 +54,11 @@ class Measured:
     """A measured map prepared for comparisons: its slabs, the user's mask, the Bragg
     exclusion and the symmetry average (shared by every model compared with it)."""
 
-    def __init__(self, meas, *, mask=None, exclude_bragg=None, symmetry=None, stream=None):
+    def __init__(self, meas, *, mask=None, exclude_bragg=None, symmetry=None, stream=None,
+                 needs_memory: bool = False):
         src = as_map(meas, "meas")
+        if stream is None and needs_memory:  # left to decide: by slabs only when nothing needs the map whole
+            stream = False
         self.streamed = should_stream(src, stream)
         self.sym_spec = _symmetry_spec(symmetry)
         if self.streamed and self.sym_spec is not None:

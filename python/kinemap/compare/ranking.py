@@ -8,7 +8,7 @@ from pathlib import Path
 
 from ..errors import InvalidInputError
 from ..pattern import Pattern
-from .core import _compare_one, _is_model
+from .core import _compare_one, _is_model, needs_memory
 from .maps import MapSource
 from .measured import Measured
 
@@ -79,7 +79,8 @@ def _rank(calcs, meas, *, names, by, mask, symmetry, exclude_bragg, stream, keep
         raise InvalidInputError(f"`names` has {len(names)} entries for {len(calcs)} models")
     if keep not in ("best", "all"):
         raise InvalidInputError(f"`keep` must be 'best' or 'all', got {keep!r}")
-    m = Measured(meas, mask=mask, exclude_bragg=exclude_bragg, symmetry=symmetry, stream=stream)
+    m = Measured(meas, mask=mask, exclude_bragg=exclude_bragg, symmetry=symmetry, stream=stream,
+                 needs_memory=needs_memory(calcs, symmetry, options.get("resolution")))
     if by is None:
         by = "chi2" if m.weighted else "wr_factor"
     if by not in RANK_BY:
