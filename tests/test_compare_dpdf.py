@@ -177,3 +177,20 @@ def test_needs_an_hkl_grid():
     grid = km.QGrid.volume([-1, -1, -1], [2, 0, 0], [0, 2, 0], [0, 0, 2], (8, 8, 8))
     with pytest.raises(InvalidInputError, match="hkl grid"):
         delta_pdf(km.Pattern(grid, intensity=np.ones(grid.shape)), PUNCH)
+
+
+def test_model_and_measurement_are_processed_identically():
+    # A measurement made from the model itself (s·I + b) with a beamstop: the two ΔPDFs of
+    # Comparison.delta_pdf agree (the model's map gets the measurement's holes), while the
+    # measured ΔPDF alone shows the alloy's correlation.
+    occ = chains(16, 0.5, -0.4, seed=1)
+    pat = zone_map(occ, 1.0, 3.0)
+    meas = 0.5 * pat.intensity + 7.0
+    n = np.indices(meas.shape) - 8
+    meas[(np.abs(n) <= 1).all(0) & ((n**2).sum(0) > 0)] = np.nan  # beamstop around (000)
+    cmp = km.compare(km.Pattern(pat.grid, intensity=pat.intensity), km.Pattern.from_array(meas, pat.grid))
+    dm, dc, diff = cmp.delta_pdf(PUNCH, apodize=False)
+    peak = dm.value_at([1, 0, 0])
+    assert peak == pytest.approx(0.5 * autocorrelation(occ, 1.0, 3.0, (1, 0, 0)), rel=0.05)
+    assert np.abs(diff.values).max() < 1e-6 * abs(peak)
+    np.testing.assert_allclose(diff.values, dm.values - dc.values)
