@@ -55,6 +55,10 @@ def add_parsers(subparsers) -> argparse.ArgumentParser:
     g.add_argument("--fixed", metavar="X=V", help="value of h, k or l that is not an axis of the map, e.g. l=0")
     g.add_argument("--mask", metavar="FILE.npy", help="boolean .npy of the map's shape, True = leave out")
     _add_grid_options(p)
+    for action in p._actions:  # the shared grid options describe a plain dataset's grid here
+        if action.dest == "cell":
+            action.help = ("cell a,b,c,alpha,beta,gamma or 9 numbers (rows a, b, c): for a measured map in h, k, l "
+                           "without a cell in the file, for --hkl, and for the Bragg exclusion")
     f = p.add_argument_group("fit")
     f.add_argument("--scale", default="fit", metavar="fit|S", help="fit the scale (default) or fix it at S")
     f.add_argument("--background", default="flat", choices=["none", "flat", "linear", "quadratic", "cubic"],

@@ -153,7 +153,9 @@ def voxel_average(model, grid: QGrid, *, progress=None, **scatter_options) -> tu
     info = {"mode": "average", "lattice_points_per_voxel": float(np.prod(gs)),
             "lattice_steps_per_voxel": list(gs), "lattice_points_computed": total_sub,
             "description": ("computed on the box's reciprocal lattice and averaged over each measured voxel "
-                            f"({'×'.join(map(str, gs))} lattice steps per voxel; points on voxel faces count half)")}
+                            f"({'×'.join(map(str, gs))} lattice steps per voxel; points on voxel faces count half)")
+            if max(gs) > 1 else ("computed on the box's reciprocal lattice, whose points are the measured voxels' "
+                                 "centres (one lattice point per voxel)")}
     return out, {"scatter": meta_first or {}, "sampling": info}
 
 
