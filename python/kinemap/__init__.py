@@ -20,6 +20,7 @@ from .scatter import KinematicApproximationWarning, OffLatticeWarning, scatter
 from .io import open_model, write_h5md
 from .frames import FrameAverages, average_frames
 from .geometry import Detector, bin_frames, expected_counts, read_frames
+from .compare import BraggExclusion, compare, delta_pdf, open_map, rank_models
 
 __all__ = [
     "__version__",
@@ -43,6 +44,11 @@ __all__ = [
     "expected_counts",
     "bin_frames",
     "read_frames",
+    "compare",
+    "rank_models",
+    "open_map",
+    "delta_pdf",
+    "BraggExclusion",
 ]
 
 # Sub-packages with heavier imports (matplotlib, scipy) load on first use: km.plot, km.quasi.

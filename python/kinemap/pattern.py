@@ -330,8 +330,9 @@ def _read_grid(gg, data, where: str) -> QGrid:
         raise ModelFileError(f"{where}: /entry/grid does not describe a valid grid: {exc}") from None
 
 
-def load_pattern(path) -> Pattern:
-    """Read a map written by :meth:`Pattern.save`.
+def load_pattern(path, **options) -> Pattern:
+    """Read a map written by :meth:`Pattern.save`, or any NeXus NXdata map (a measured one:
+    see :func:`kinemap.compare.open_map` for the `options`, e.g. ``cell=`` for axes in h, k, l).
 
     Raises
     ------
@@ -350,12 +351,16 @@ def load_pattern(path) -> Pattern:
     except OSError as exc:
         raise ModelFileError(f"{str(p)!r} is not a readable HDF5 file: {exc}") from None
     with f:
-        data = f.get("entry/data")
-        gg = f.get("entry/grid")
-        if data is None or "intensity" not in data or gg is None or "kind" not in gg or "shape" not in gg:
-            missing = [n for n in ("entry/data/intensity", "entry/grid/kind", "entry/grid/shape") if n not in f]
-            raise ModelFileError(f"{str(p)!r} is not a kinemap map: dataset '/{missing[0]}' is missing")
-        grid = _read_grid(gg, data, str(p))
+        native = all(need in f for need in ("entry/data/intensity", "entry/grid/kind", "entry/grid/shape"))
+        if native and options:
+            raise InvalidInputError(f"{str(p)!r} is a kinemap map; options {sorted(options)} apply to other NeXus maps")
+    if not native:  # not written by kinemap: the generic NeXus NXdata reader
+        from .compare.nexus import read_nxdata
+
+        return read_nxdata(p, **options)
+    with h5py.File(p, "r") as f:
+        data = f["entry/data"]
+        grid = _read_grid(f["entry/grid"], data, str(p))
         amplitude = data["amplitude"][()] if "amplitude" in data else None
         intensity = data["intensity"][()]
         sigma = data["intensity_errors"][()] if "intensity_errors" in data else None

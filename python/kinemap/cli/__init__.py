@@ -18,6 +18,7 @@ from ._args import (EPILOG_CODES, EXIT_FILE, EXIT_INPUT, EXIT_INTERRUPT, EXIT_OK
 def build_parser() -> argparse.ArgumentParser:
     from .. import __version__
     from ._commands import add_parsers
+    from ._compare import add_parsers as add_compare_parsers
     from ._frames import add_parsers as add_frames_parsers
 
     fmt = argparse.RawDescriptionHelpFormatter
@@ -35,6 +36,7 @@ def build_parser() -> argparse.ArgumentParser:
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=Parser)
     add_parsers(sub, fmt)
     add_frames_parsers(sub)
+    add_compare_parsers(sub)
     return parser
 
 

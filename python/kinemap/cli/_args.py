@@ -312,7 +312,10 @@ def probe_options(args) -> dict:
 
 
 def grid_cell(args, source):
-    """The cell for h, k, l, and a note when it is the whole box because none was given."""
+    """The cell for h, k, l (--cell, else the model's), and a note when it is the model's whole
+    box because no cell was given."""
+    if getattr(args, "cell", None):
+        return cell(args.cell), None
     if source is not None and source.cell is not None:
         c = np.asarray(source.cell)
         given = bool(getattr(args, "cell", None) or getattr(args, "supercell", None))
