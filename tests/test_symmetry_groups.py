@@ -119,17 +119,21 @@ def rodrigues(axis, angle):
 
 
 def closure(gens):
-    ops = [np.eye(3)]
-    grew = True
-    while grew:
-        grew = False
-        for a in list(ops):
+    """All products of the generators (matrices compared after rounding to 1e-9)."""
+    def key(m):
+        return (np.round(m, 9) + 0.0).tobytes()
+    ops = {key(np.eye(3)): np.eye(3)}
+    frontier = [np.eye(3)]
+    while frontier:
+        new = []
+        for a in frontier:
             for g in gens:
                 p = a @ g
-                if not any(np.allclose(p, o, atol=1e-9) for o in ops):
-                    ops.append(p)
-                    grew = True
-    return ops
+                if key(p) not in ops:
+                    ops[key(p)] = p
+                    new.append(p)
+        frontier = new
+    return list(ops.values())
 
 
 def cartesian_orbit(hkl, cart_ops, cell):

@@ -26,6 +26,7 @@ interpolation-error theorem for linear interpolation, f − p = ½ f''(ξ)(x −
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from itertools import product
 
 import numpy as np
 
@@ -293,22 +294,20 @@ def accumulate(values0: np.ndarray, avail: np.ndarray, var0: np.ndarray | None, 
         flat_v = values0.reshape(-1)
         flat_a = avail.reshape(-1)
         flat_q = None if var0 is None else var0.reshape(-1)
-        avail_f = None
-        if any(g.mode == "interp" for g in others):
-            avail_f = avail.astype(np.float32)
+        flat_a_all = bool(avail.all())
         rest = int(np.prod(n[1:])) if len(n) > 1 else 1
         rows = max(1, SLAB_POINTS // max(rest, 1))
         for g in others:
             for r0 in range(0, int(n[0]) if len(n) else 1, rows):
                 r1 = min(int(n[0]), r0 + rows) if len(n) else 1
-                _slab(g, r0, r1, n, tol, values0, flat_v, flat_a, flat_q, var0, avail_f,
+                _slab(g, r0, r1, n, tol, values0, flat_v, flat_a, flat_q, var0, flat_a_all,
                       second_diff, total, count, stab, var, err)
             if progress is not None:
                 progress(1)
     return Sums(total, count, stab, var, err)
 
 
-def _slab(g, r0, r1, n, tol, values0, flat_v, flat_a, flat_q, var0, avail_f, second_diff,
+def _slab(g, r0, r1, n, tol, values0, flat_v, flat_a, flat_q, var0, flat_a_all, second_diff,
           total, count, stab, var, err):
     k = len(n)
     if k == 0:
@@ -349,9 +348,7 @@ def _slab(g, r0, r1, n, tol, values0, flat_v, flat_a, flat_q, var0, avail_f, sec
         if var is not None:
             var[sl] += np.where(av > 0, flat_q[flat], 0.0)
         return
-    # interpolation (multilinear)
-    from scipy.ndimage import map_coordinates
-
+    # interpolation (multilinear), on the images that fall inside the grid
     ok = np.ones(slab_shape, dtype=bool)
     fixed = np.ones(slab_shape, dtype=bool)
     for d in range(k):
@@ -360,25 +357,47 @@ def _slab(g, r0, r1, n, tol, values0, flat_v, flat_a, flat_q, var0, avail_f, sec
     stab[sl] += fixed.astype(stab.dtype)
     if not ok.any():
         return
-    coords = np.array([np.clip(xd[ok], 0.0, float(n[d] - 1)) for d, xd in enumerate(x)])
-    a_int = map_coordinates(avail_f, coords, order=1, mode="nearest", prefilter=False)
-    good = a_int >= 1.0 - 1e-6
-    v_int = map_coordinates(values0, coords, order=1, mode="nearest", prefilter=False)
+    inside = np.flatnonzero(ok.reshape(-1))
+    strides = [int(np.prod(n[d + 1:])) for d in range(k)]
+    base = np.zeros(len(inside), dtype=np.int64)
+    nearest = np.zeros(len(inside), dtype=np.int64)
+    frac = []
+    for d in range(k):
+        xd = np.clip(x[d].reshape(-1)[inside], 0.0, float(n[d] - 1))
+        i0 = np.minimum(np.floor(xd).astype(np.int64), int(n[d]) - 2)
+        t = xd - i0
+        base += i0 * strides[d]
+        nearest += np.rint(xd).astype(np.int64) * strides[d]
+        frac.append(t)
+    v_int = np.zeros(len(inside))
+    bad = None if flat_a_all else np.zeros(len(inside))
+    q_int = None if var is None else np.zeros(len(inside))
+    for corner in product((0, 1), repeat=k):
+        w = np.ones(len(inside))
+        off = 0
+        for d, b in enumerate(corner):
+            w *= frac[d] if b else 1.0 - frac[d]
+            off += b * strides[d]
+        at = base + off
+        v_int += w * flat_v[at]
+        if bad is not None:
+            bad += w * (1 - flat_a[at])
+        if q_int is not None:
+            q_int += w * flat_q[at]
+    good = slice(None) if bad is None else bad <= 1e-9
+    idx = inside[good]
     # each output point appears once per action, so plain fancy-index adds are safe;
     # slabs along axis 0 of C-ordered arrays are contiguous, so the reshapes are views
-    idx = np.flatnonzero(ok.reshape(-1))[good]
     total[sl].reshape(-1)[idx] += v_int[good]
     count[sl].reshape(-1)[idx] += 1
     if var is not None:
-        q_int = map_coordinates(var0, coords, order=1, mode="nearest", prefilter=False)
-        var[sl].reshape(-1)[idx] += q_int[good]
+        var[sl].reshape(-1)[idx] += q_int[good]       # Σ w σ² >= Σ w² σ²: an upper bound
     if second_diff is not None and err is not None:
-        cg = coords[:, good]
-        nearest = np.ravel_multi_index([np.rint(c).astype(np.int64) for c in cg], tuple(int(v) for v in n))
-        e = np.zeros(cg.shape[1])
+        near = nearest[good]
+        e = np.zeros(len(near))
         for d in range(k):
-            t = cg[d] - np.floor(cg[d])
-            e += 0.5 * t * (1.0 - t) * second_diff[d].reshape(-1)[nearest]
+            t = frac[d][good]
+            e += 0.5 * t * (1.0 - t) * second_diff[d].reshape(-1)[near]
         err[sl].reshape(-1)[idx] += e
 
 

@@ -518,7 +518,7 @@ def _interp_summary(sums, mean) -> dict:
     rms = float(np.sqrt(np.mean(e ** 2))) if e.size else float("nan")
     return {
         "order": 1,
-        "scheme": "multilinear (scipy.ndimage.map_coordinates, order 1)",
+        "scheme": "multilinear (the 2^d neighbouring grid points)",
         "error_estimate": "1/2 sum_d t_d (1 - t_d) |second difference of I along axis d| per image, "
                           "averaged over the point's images",
         "error_rms": rms,
