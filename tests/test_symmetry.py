@@ -402,3 +402,26 @@ def test_reflection_list_with_hkl_indices(rng):
     for k in range(4):
         assert np.allclose(sym.intensity[kind == k], inten[kind == k].mean(), rtol=1e-13)
     assert sym.metadata["symmetry"]["n_independent"] == 4
+
+
+def test_single_reflection_keeps_its_site_symmetry():
+    grid = km.QGrid.hkl(np.eye(3) * 4.0, h=1, k=1, l=0)
+    sym = symmetrize(km.Pattern.from_array(np.array(3.0), grid), "m-3m")
+    # the operations that fix (1 1 0): 48 / multiplicity 12 = 4 (Cullity & Stock; memory)
+    assert sym.metadata["symmetry"]["n_operations_used"] == 4 and float(sym.intensity) == 3.0
+
+
+def test_progress_reports_every_operation():
+    grid = km.QGrid.hkl(np.eye(3) * 4.0, h=(-1, 1, 3), k=(-1, 1, 3), l=(-1, 1, 3))
+    seen = []
+    symmetrize(km.Pattern.from_array(np.ones(grid.shape), grid), "m-3m", progress=lambda d, t: seen.append((d, t)))
+    assert seen[-1] == (48, 48) and len(seen) == 48
+
+
+def test_a_map_too_large_for_the_memory_left_is_refused(monkeypatch):
+    import kinemap._shared.memory as memory
+
+    monkeypatch.setattr(memory, "available_memory", lambda: 1 << 20)
+    grid = km.QGrid.hkl(np.eye(3) * 4.0, h=(-2, 2, 41), k=(-2, 2, 41), l=(-2, 2, 41))
+    with pytest.raises(InvalidInputError, match="symmetrising a map of 68,921 points would need about"):
+        symmetrize(km.Pattern.from_array(np.ones(grid.shape), grid), "m-3m")

@@ -211,3 +211,31 @@ def test_quasicrystal_groups_refuse_cells_and_hkl_grids():
     hkl = km.QGrid.hkl(np.eye(3) * 4, h=(-1, 1, 3), k=(-1, 1, 3), l=0)
     with pytest.raises(InvalidInputError, match="does not act on h, k, l"):
         symmetrize(km.Pattern.from_array(np.ones(hkl.shape), hkl), "10/mmm")
+
+
+def test_line_along_a_threefold_axis():
+    # the operations of m-3-5 that map the [111] line onto itself form -3m (order 12;
+    # textbook site symmetry of a 3-fold axis of the icosahedron); on the line they act as
+    # the identity or the reversal
+    line = km.QGrid.line([-1, -1, -1], [1, 1, 1], 7)
+    vals = np.arange(7.0) ** 2
+    sym = symmetrize(km.Pattern.from_array(vals, line), "m-3-5")
+    assert np.allclose(sym.intensity, (vals + vals[::-1]) / 2, rtol=1e-13)
+    info = sym.metadata["symmetry"]
+    assert info["n_operations_used"] == 12 and info["n_distinct_actions"] == 2
+
+
+def test_interpolation_fills_unmeasured_points():
+    n = 21
+    grid = km.QGrid.volume([-1.5] * 3, [3, 0, 0], [0, 3, 0], [0, 0, 3], (n, n, n))
+    q = grid.q_vectors().reshape(n, n, n, 3)
+    exact = vertex_gaussians(q)
+    gap = (np.abs(q[..., 0] - 0.6) < 0.2) & (np.abs(q[..., 1]) < 0.3)     # a detector-gap-like slab
+    measured = np.where(gap, np.nan, exact)
+    sym = symmetrize(km.Pattern.from_array(measured, grid), "m-3-5")
+    info = sym.metadata["symmetry"]
+    assert info["n_points_filled"] == int(gap.sum())
+    filled = sym.intensity[gap]
+    assert np.isfinite(filled).all()
+    # filled from images that avoid the gap: as close to the exact function as the estimate says
+    assert np.abs(filled - exact[gap]).max() <= 1.2 * info["interpolation"]["error_max"]

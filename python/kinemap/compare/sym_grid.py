@@ -105,7 +105,7 @@ def grid_actions(ops, origin, steps, shape, *, tol: float, interpolate: bool) ->
             mode = "none"    # the image lattice is the grid's, shifted off it: no image on a point
         else:
             mode = "float"
-        key = np.round(np.concatenate([a.ravel(), c]), 9).tobytes() + mode.encode()
+        key = (np.round(np.concatenate([a.ravel(), c]), 9) + 0.0).tobytes() + mode.encode()   # no -0.0
         if key in actions:
             actions[key].ops.append(k)
         else:
