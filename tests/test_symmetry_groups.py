@@ -12,12 +12,14 @@ Outside references (see docs/references.md):
 """
 
 import math
+
 import numpy as np
 import pytest
 
 from kinemap.compare import LAUE_CLASSES, POINT_GROUPS, equivalent_reflections, point_group
 from kinemap.errors import InvalidInputError
 from kinemap.model import cell_from_parameters
+
 
 # Textbook orders of the 32 point groups (ITA Vol. A; memory).
 ORDERS = {
@@ -280,7 +282,7 @@ def test_quasicrystal_group_orders(symbol, order):
         assert np.allclose(r @ r.T, np.eye(3), atol=1e-12)
     assert not g.is_crystallographic
     with pytest.raises(InvalidInputError, match="crystallographic"):
-        g.hkl_operations  # noqa: B018
+        g.hkl_operations
 
 
 def test_icosahedral_axes_lie_where_kinemap_quasi_puts_them():

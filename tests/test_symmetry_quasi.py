@@ -23,10 +23,11 @@ from kinemap.errors import InvalidInputError
 
 from test_symmetry_groups import closure, rodrigues
 
+
 TAU = (1 + 5 ** 0.5) / 2
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def icosahedral_ops():
     ops = closure([rodrigues([0, 0, 1], math.pi), rodrigues([1, 1, 1], 2 * math.pi / 3),
                    rodrigues([0, 1, TAU], 2 * math.pi / 5), -np.eye(3)])

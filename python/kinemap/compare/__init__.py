@@ -10,8 +10,8 @@ measured maps, agreement factors and real-space comparison.
 """
 
 from .pointgroups import LAUE_CLASSES, POINT_GROUPS, QUASICRYSTAL_GROUPS, PointGroup, point_group
-from .symmetry import (CENTRING_CONDITIONS, BijvoetAveragingWarning, allowed_reflections, equivalent_reflections,
-                       symmetrize)
+from .sym_reflections import CENTRING_CONDITIONS, allowed_reflections, equivalent_reflections
+from .symmetry import BijvoetAveragingWarning, symmetrize
 
 __all__ = ["symmetrize", "point_group", "PointGroup", "equivalent_reflections", "allowed_reflections",
            "BijvoetAveragingWarning", "POINT_GROUPS", "LAUE_CLASSES", "QUASICRYSTAL_GROUPS",

@@ -43,41 +43,15 @@ cut-and-project scheme they become integer matrices on the higher-dimensional in
 from __future__ import annotations
 
 import math
-import re
 from dataclasses import dataclass, field
-from functools import lru_cache
-from itertools import product
+from functools import cache, lru_cache
 
 import numpy as np
 
 from ..errors import InvalidInputError
+from .sym_symbols import (_VARIANTS, LAUE_CLASSES, POINT_GROUPS, QUASICRYSTAL_GROUPS, TAU, _Reading, _Token,
+                          read_symbol)
 
-TAU = (1.0 + math.sqrt(5.0)) / 2.0
-
-#: The 32 crystallographic point groups in their standard settings (monoclinic unique axis
-#: b, trigonal groups on hexagonal axes in the orientation with 2-fold axes or mirror normals
-#: along a).
-POINT_GROUPS = (
-    "1", "-1",
-    "2", "m", "2/m",
-    "222", "mm2", "mmm",
-    "4", "-4", "4/m", "422", "4mm", "-42m", "4/mmm",
-    "3", "-3", "321", "3m1", "-3m1",
-    "6", "-6", "6/m", "622", "6mm", "-6m2", "6/mmm",
-    "23", "m-3", "432", "-43m", "m-3m",
-)
-
-#: The 11 Laue classes (the centrosymmetric point groups).
-LAUE_CLASSES = ("-1", "2/m", "mmm", "4/m", "4/mmm", "-3", "-3m1", "6/m", "6/mmm", "m-3", "m-3m")
-
-#: Point groups of quasicrystals (operations act on Cartesian q in the kinemap.quasi frame).
-QUASICRYSTAL_GROUPS = ("m-3-5", "235", "8/mmm", "10/mmm", "12/mmm")
-
-# Symbols that name the same group in other orientations or spellings; each one's settings.
-_VARIANTS = ("2mm", "m2m", "-4m2", "312", "31m", "-31m", "-62m")
-
-_NUMBERS = ("10", "12", "1", "2", "3", "4", "5", "6", "8")
-_N_GONAL = (5, 8, 10, 12)
 _MAX_ORDER = 240
 
 
@@ -101,176 +75,6 @@ def _reference_cell(system: str, setting: str | None) -> np.ndarray:
         cy = (ca - ca * ca) / sa
         return np.array([[1.0, 0.0, 0.0], [ca, sa, 0.0], [ca, cy, math.sqrt(1.0 - ca * ca - cy * cy)]])
     return np.eye(3)
-
-
-# ----------------------------------------------------------------------------- parsing
-@dataclass(frozen=True)
-class _Token:
-    order: int          # rotation order n (1 for 1 and -1, 2 for m)
-    improper: bool      # -n (m is -2)
-    with_mirror: bool   # n/m
-
-    @property
-    def text(self) -> str:
-        if self.with_mirror:
-            return f"{self.order}/m"
-        if self.improper and self.order == 2:
-            return "m"
-        return ("-" if self.improper else "") + str(self.order)
-
-
-def _normalise(text: str) -> str:
-    s = text.strip()
-    # overbars written after the digit (combining macron U+0304 or overline U+0305)
-    s = re.sub(r"(\d+)[\u0304\u0305]", r"-\1", s)
-    s = s.replace("\u2212", "-").replace("\u2012", "-").replace("\u2013", "-").replace("\u00af", "-")
-    s = re.sub(r"\s*/\s*", "/", s)
-    s = re.sub(r"-\s+", "-", s)
-    return s
-
-
-def _tokenisations(chunk: str) -> list[list[_Token]]:
-    """Every way of reading `chunk` (no spaces) as a sequence of symbol elements."""
-    if not chunk:
-        return [[]]
-    out = []
-    if chunk[0] == "m":
-        for rest in _tokenisations(chunk[1:]):
-            out.append([_Token(2, True, False)] + rest)
-        return out
-    neg = chunk[0] == "-"
-    body = chunk[1:] if neg else chunk
-    for num in _NUMBERS:
-        if not body.startswith(num):
-            continue
-        n = int(num)
-        after = body[len(num):]
-        if after.startswith("/m") and not neg and n not in (1, 3, 5):
-            for rest in _tokenisations(after[2:]):
-                out.append([_Token(n, False, True)] + rest)
-        for rest in _tokenisations(after):
-            out.append([_Token(n, neg, False)] + rest)
-    return out
-
-
-def _split_setting(symbol: str, setting) -> tuple[str, str | None]:
-    if ":" in symbol:
-        sym, _, suffix = symbol.partition(":")
-        suffix = suffix.strip()
-        if setting is not None and _setting_name(setting) != _setting_name(suffix):
-            raise InvalidInputError(
-                f"point group {symbol!r} names setting {suffix!r} but `setting` is {setting!r}; give one")
-        return sym, _setting_name(suffix)
-    return symbol, None if setting is None else _setting_name(setting)
-
-
-def _setting_name(value) -> str:
-    if not isinstance(value, str):
-        raise InvalidInputError(f"`setting` must be text such as 'b', 'c', 'H' or 'R', got {value!r}")
-    v = value.strip()
-    table = {"a": "a", "b": "b", "c": "c", "H": "H", "R": "R", "h": "H", "r": "R",
-             "hexagonal": "H", "rhombohedral": "R", "unique_a": "a", "unique_b": "b", "unique_c": "c"}
-    if v not in table:
-        raise InvalidInputError(
-            f"unknown setting {value!r}: use 'a', 'b' or 'c' (the unique axis of a monoclinic group) "
-            "or 'H'/'R' (hexagonal or rhombohedral axes of a trigonal group)")
-    return table[v]
-
-
-@dataclass(frozen=True)
-class _Reading:
-    system: str
-    setting: str | None
-    tokens: tuple
-    directions: tuple  # one direction per token (lattice [uvw] or Cartesian for quasi systems)
-
-
-_MONO_AXES = {"a": (1, 0, 0), "b": (0, 1, 0), "c": (0, 0, 1)}
-
-
-def _classify(tokens: list[_Token], setting: str | None, shown: str) -> _Reading | str:
-    """The system and symmetry directions of a token list, or the reason it is not a symbol."""
-    k = len(tokens)
-    orders = [t.order for t in tokens]
-    lattice_setting_ok = {"monoclinic": ("a", "b", "c"), "trigonal": ("H", "R")}
-
-    def reading(system, dirs, sett=None):
-        if setting is not None and system not in lattice_setting_ok:
-            return f"a {system} group takes no setting (got {setting!r})"
-        if setting is not None and setting not in lattice_setting_ok[system]:
-            return f"setting {setting!r} does not apply to the {system} group {shown!r}"
-        return _Reading(system, sett, tuple(tokens), tuple(tuple(d) for d in dirs))
-
-    if k == 1:
-        n = orders[0]
-        if n == 1:
-            return reading("triclinic", [(0, 0, 1)])
-        if n == 2:
-            axis = setting or "b"
-            if axis not in _MONO_AXES:
-                return f"setting {setting!r} does not apply to the monoclinic group {shown!r}"
-            return reading("monoclinic", [_MONO_AXES[axis]], axis)
-        if n == 3:
-            sett = setting or "H"
-            if sett not in ("H", "R"):
-                return f"setting {setting!r} does not apply to the trigonal group {shown!r}"
-            return reading("trigonal", [(0, 0, 1) if sett == "H" else (1, 1, 1)], sett)
-        if n == 4:
-            return reading("tetragonal", [(0, 0, 1)])
-        if n == 6:
-            return reading("hexagonal", [(0, 0, 1)])
-        if n in _N_GONAL:
-            return reading(f"{n}-gonal", [(0, 0, 1)])
-        return "no such rotation order"
-    if k == 2:
-        if orders[1] == 3 and orders[0] == 2:
-            return reading("cubic", [(0, 0, 1), (1, 1, 1)])
-        if orders[0] == 3 and orders[1] == 2:
-            if setting == "R":
-                return reading("trigonal", [(1, 1, 1), (1, -1, 0)], "R")
-            if setting not in (None, "H"):
-                return f"setting {setting!r} does not apply to the trigonal group {shown!r}"
-            return ("ambiguous on hexagonal axes: the 2-fold axes (or mirror normals) lie either "
-                    "along a, b ([100], secondary position) or along a-b ([1-10], tertiary "
-                    "position); write e.g. '-3m1' or '-31m', '321' or '312', '3m1' or '31m', "
-                    "or add ':R' for rhombohedral axes")
-        if orders[0] == 5 and orders[1] == 2:
-            return reading("5-gonal", [(0, 0, 1), (1, 0, 0)])
-        return "not a point-group symbol"
-    if k == 3:
-        if orders[1] == 3:
-            if orders[2] == 5 and orders[0] == 2:
-                return reading("icosahedral", [(0, 0, 1), (1, 1, 1), (0, 1, TAU)])
-            if orders[2] == 2 and orders[0] in (2, 4):
-                return reading("cubic", [(0, 0, 1), (1, 1, 1), (1, -1, 0)])
-            return "not a cubic or icosahedral symbol"
-        if orders.count(1) == 2:
-            j = next(i for i, n in enumerate(orders) if n != 1)
-            if orders[j] != 2 or any(t.improper for i, t in enumerate(tokens) if i != j):
-                return "not a monoclinic full symbol"
-            axis = "abc"[j]
-            if setting is not None and setting != axis:
-                return f"the full symbol puts the unique axis along {axis}, but the setting says {setting!r}"
-            return _Reading("monoclinic", axis, (tokens[j],), (_MONO_AXES[axis],))
-        if all(n == 2 for n in orders):
-            return reading("orthorhombic", [(1, 0, 0), (0, 1, 0), (0, 0, 1)])
-        if orders[0] == 4 and orders[1] == 2 and orders[2] == 2:
-            return reading("tetragonal", [(0, 0, 1), (1, 0, 0), (1, -1, 0)])
-        if orders[0] == 6 and orders[1] == 2 and orders[2] == 2:
-            return reading("hexagonal", [(0, 0, 1), (1, 0, 0), (1, -1, 0)])
-        if orders[0] == 3 and sorted(orders[1:]) == [1, 2]:
-            if setting == "R":
-                return ("on rhombohedral axes a trigonal group has one orientation: write e.g. "
-                        "'-3m:R', '32:R' or '3m:R'")
-            if setting not in (None, "H"):
-                return f"setting {setting!r} does not apply to the trigonal group {shown!r}"
-            return reading("trigonal", [(0, 0, 1), (1, 0, 0), (1, -1, 0)], "H")
-        if orders[0] in _N_GONAL and orders[1] == 2 and orders[2] == 2:
-            n = orders[0]
-            return reading(f"{n}-gonal", [(0, 0, 1), (1, 0, 0),
-                                          (math.cos(math.pi / n), math.sin(math.pi / n), 0.0)])
-        return "not a point-group symbol"
-    return "too many positions for a point-group symbol"
 
 
 # ----------------------------------------------------------------------------- groups
@@ -485,7 +289,7 @@ class PointGroup:
         return np.einsum("ij,njk,kl->nil", c.T, self.operations.astype(np.float64), np.linalg.inv(c).T)
 
     # -- relatives --------------------------------------------------------------------
-    def laue_class(self) -> "PointGroup":
+    def laue_class(self) -> PointGroup:
         """The group with the inversion added (its Laue class), in the same setting."""
         ops = list(self.operations) + [(-np.eye(3)).astype(self.operations.dtype)]
         return _named_group(ops, self.system, self.setting, self.is_crystallographic)
@@ -497,7 +301,7 @@ class PointGroup:
             base = {"icosahedral": ["235"]}.get(self.system)
             if base is None and self.system.endswith("-gonal"):
                 n = self.system.split("-")[0]
-                base = [f"{n}22", f"{n}mm"] + ([f"-{n}m2", f"-{n}2m"] if int(n) % 4 == 2 else [])
+                base = [f"{n}22", f"{n}mm", f"-{n}m2", f"-{n}2m"] if int(n) % 2 == 0 else [f"{n}2", f"{n}m"]
             return base or []
         laue = self.laue_class()
         lkeys = {_key_int(w) for w in laue.operations}
@@ -539,7 +343,9 @@ class PointGroup:
             When an operation does not map the scheme's star of basis vectors onto itself
             (the group is not a symmetry of its Fourier module in this frame).
         """
-        return _index_operations(self, scheme)
+        from .sym_quasi import index_operations
+
+        return index_operations(self, scheme)
 
     def __repr__(self) -> str:
         return f"PointGroup({self.name!r}, system={self.system!r}, order={self.order})"
@@ -588,14 +394,14 @@ def _named_group(ops, system, setting, crystallographic) -> PointGroup:
     return PointGroup(symbol, setting, system, w, w)
 
 
-@lru_cache(maxsize=None)
+@cache
 def _catalogue(system: str, setting: str | None) -> dict:
     """Operation sets -> standard symbol, for the groups of one system and setting."""
     out = {}
     for sym in POINT_GROUPS + _VARIANTS + ("32", "3m", "-3m"):
         for sett in ([setting] if setting else [None]):
             try:
-                reading = _read(sym, sett)
+                reading = read_symbol(sym, sett)
             except InvalidInputError:
                 continue
             if reading.system != system or reading.setting != setting:
@@ -605,7 +411,7 @@ def _catalogue(system: str, setting: str | None) -> dict:
     return out
 
 
-@lru_cache(maxsize=None)
+@cache
 def _quasi_catalogue(system: str) -> dict:
     out = {}
     n = system.split("-")[0]
@@ -613,7 +419,7 @@ def _quasi_catalogue(system: str) -> dict:
         [f"{n}/mmm", f"{n}22", f"{n}mm", f"{n}/m", n, f"-{n}", f"-{n}m2", f"-{n}2m"]
     for sym in names:
         try:
-            reading = _read(sym, None)
+            reading = read_symbol(sym, None)
         except InvalidInputError:
             continue
         if reading.system != system:
@@ -622,54 +428,6 @@ def _quasi_catalogue(system: str) -> dict:
                        _key_float, False)
         out.setdefault(frozenset(_key_float(w) for w in ops), sym)
     return out
-
-
-def _read(symbol: str, setting) -> _Reading:
-    if not isinstance(symbol, str):
-        raise InvalidInputError(f"`group` must be a Hermann–Mauguin symbol (text) or a PointGroup, got {symbol!r}")
-    raw, sett = _split_setting(_normalise(symbol), setting)
-    shown = symbol.strip()
-    if not raw:
-        raise InvalidInputError("`group` is empty; give a Hermann–Mauguin symbol such as 'm-3m' or '6/mmm'")
-    aliases = {"m35": "m-3-5", "-53m": "m-3-5", "-5-3m": "m-3-5", "-5-32/m": "m-3-5", "2/m-3-5": "m-3-5",
-               "532": "235", "53": "235", "m-5-3": "m-3-5"}
-    compact = raw.replace(" ", "")
-    if compact in aliases:
-        raw = aliases[compact]
-    odd = re.search(r"(?<![0-9])([135])/m", raw)
-    if odd:
-        n = int(odd.group(1))
-        better = {1: "-1", 3: "-6", 5: "-10"}[n]
-        raise InvalidInputError(
-            f"cannot read point-group symbol {shown!r}: {n}/m is written {better} in Hermann–Mauguin notation")
-    chunks = raw.split()
-    readings: list[_Token] = [[]]
-    for ch in chunks:
-        parts = _tokenisations(ch)
-        if not parts:
-            raise InvalidInputError(
-                f"cannot read point-group symbol {shown!r}: {ch!r} is not made of the elements "
-                "1, 2, 3, 4, 6 (or 5, 8, 10, 12 for quasicrystals), their rotoinversions -n, m and n/m")
-        readings = [r + p for r in readings for p in parts]
-    reasons, found = [], []
-    for toks in readings:
-        res = _classify(toks, sett, shown)
-        if isinstance(res, _Reading):
-            found.append(res)
-        else:
-            reasons.append(res)
-    if not found:
-        why = next((r for r in reasons if r.startswith("ambiguous") or "setting" in r or "orientation" in r),
-                   reasons[0] if reasons else "not a point-group symbol")
-        raise InvalidInputError(
-            f"cannot read point-group symbol {shown!r}: {why}. Known groups: the 32 crystallographic "
-            f"point groups ({', '.join(POINT_GROUPS)}; also -31m, 312, 31m, -4m2, -62m, 2mm, m2m) "
-            f"with settings ':a'/':b'/':c' (monoclinic unique axis) and ':H'/':R' (trigonal axes), "
-            f"and the quasicrystal groups {', '.join(QUASICRYSTAL_GROUPS)}")
-    if len({(f.system, f.tokens) for f in found}) > 1:
-        # e.g. '12/m1' (monoclinic) read also as a 12-gonal group: prefer crystallographic
-        found.sort(key=lambda f: f.system.endswith("-gonal"))
-    return found[0]
 
 
 def _build_lattice(reading: _Reading) -> list[np.ndarray]:
@@ -689,7 +447,7 @@ def _build_lattice(reading: _Reading) -> list[np.ndarray]:
 
 @lru_cache(maxsize=256)
 def _point_group_cached(symbol: str, setting) -> PointGroup:
-    reading = _read(symbol, setting)
+    reading = read_symbol(symbol, setting)
     if reading.system == "icosahedral" or reading.system.endswith("-gonal"):
         gens = [m for t, d in zip(reading.tokens, reading.directions) for m in _element_matrices(t, d)]
         g = _named_group(gens if gens else [np.eye(3)], reading.system, None, False)
@@ -746,109 +504,5 @@ def point_group(symbol, *, setting: str | None = None) -> PointGroup:
     return _point_group_cached(symbol, setting)
 
 
-# ----------------------------------------------------------------------------- quasicrystals
-def _scheme_parts(scheme):
-    try:
-        par = np.atleast_2d(np.asarray(scheme.parallel, dtype=np.float64))
-        perp = np.atleast_2d(np.asarray(scheme.internal, dtype=np.float64))
-        basis = np.asarray(scheme.index_basis, dtype=np.float64)
-    except AttributeError:
-        raise InvalidInputError(
-            f"`scheme` must be a kinemap.quasi cut-and-project scheme (e.g. quasi.icosahedral()), "
-            f"got {type(scheme).__name__}") from None
-    return par, perp, basis
-
-
-def _index_operations(group: PointGroup, scheme) -> np.ndarray:
-    par, perp, basis = _scheme_parts(scheme)
-    d, big_d = par.shape
-    if d not in (2, 3):
-        raise InvalidInputError(f"point groups act on 2- or 3-dimensional schemes; this scheme is {d}-dimensional")
-    emb = np.vstack([par, perp])
-    emb_inv = np.linalg.inv(emb)
-    dual = emb_inv.T @ basis
-    scale = float(np.abs(par).max())
-    out = []
-    for r in group.cartesian:
-        if d == 2:
-            if np.abs(r[2, :2]).max() > 1e-9 or np.abs(r[:2, 2]).max() > 1e-9:
-                raise InvalidInputError(
-                    f"point group {group.name!r} does not map the plane of the planar scheme "
-                    f"{getattr(scheme, 'name', '')!r} (the xy-plane) onto itself: operation "
-                    f"{describe_operation(r, lattice=False)}")
-            rp = r[:2, :2]
-        else:
-            rp = r
-        img = rp @ par
-        s = np.zeros((big_d, big_d))
-        for j in range(big_d):
-            diff_p = np.abs(par - img[:, j:j + 1]).max(axis=0)
-            diff_m = np.abs(par + img[:, j:j + 1]).max(axis=0)
-            kp, km = int(np.argmin(diff_p)), int(np.argmin(diff_m))
-            if diff_p[kp] <= 1e-8 * scale:
-                s[kp, j] = 1.0
-            elif diff_m[km] <= 1e-8 * scale:
-                s[km, j] = -1.0
-            else:
-                raise InvalidInputError(
-                    f"point group {group.name!r} is not a symmetry of the scheme "
-                    f"{getattr(scheme, 'name', '')!r} in its frame: the operation "
-                    f"{describe_operation(r, lattice=False)} does not map its basis vector e_{j}∥ onto "
-                    "± another one")
-        b = emb @ s @ emb_inv
-        if np.abs(b[:d, d:]).max() > 1e-8 or np.abs(b[d:, :d]).max() > 1e-8 or \
-                np.abs(b @ b.T - np.eye(big_d)).max() > 1e-8:
-            raise InvalidInputError(
-                f"operation {describe_operation(r, lattice=False)} of {group.name!r} permutes the scheme's "
-                "physical basis vectors but not its internal ones consistently")
-        t = np.linalg.solve(basis, np.linalg.inv(s).T @ basis)
-        ti = np.rint(t)
-        if np.abs(t - ti).max() > 1e-8 or np.abs(dual @ ti - b @ dual).max() > 1e-8 * max(1.0, np.abs(dual).max()):
-            raise InvalidInputError(
-                f"operation {describe_operation(r, lattice=False)} of {group.name!r} is not an integer map "
-                "of the scheme's indices")
-        out.append(ti.astype(np.int64))
-    return np.array(out)
-
-
-def index_kernel(scheme) -> np.ndarray | None:
-    """The integer vector v with k(h + v) = k(h) and the same dense perpendicular part and
-    the same phases on discrete internal components (e.g. (1, 1, 1, 1, 1) for the Penrose
-    scheme), or None when indices are unique."""
-    par, perp, basis = _scheme_parts(scheme)
-    d, big_d = par.shape
-    dual = np.linalg.inv(np.vstack([par, perp])).T @ basis
-    try:
-        dense = np.asarray(scheme.window.dense, dtype=bool)
-    except AttributeError:
-        dense = np.ones(big_d - d, dtype=bool)
-    rows = np.vstack([dual[:d], dual[d:][dense]])
-    _u, sv, vt = np.linalg.svd(rows)
-    null = vt[np.sum(sv > 1e-9 * sv.max()):]
-    if len(null) == 0:
-        return None
-    if len(null) > 1:
-        raise InvalidInputError("the scheme's indices are ambiguous in more than one direction; not supported")
-    v = null[0] / np.abs(null[0])[np.abs(null[0]) > 1e-9].min()
-    vi = np.rint(v)
-    if np.abs(v - vi).max() > 1e-8:
-        raise InvalidInputError("the scheme's index ambiguity is not an integer vector; not supported")
-    disc = dual[d:][~dense] @ vi
-    if np.abs(disc - np.rint(disc)).max() > 1e-8:
-        return None
-    j = int(np.flatnonzero(vi)[0])
-    return (vi * np.sign(vi[j])).astype(np.int64)
-
-
-def canonical_indices(h: np.ndarray, kernel: np.ndarray | None) -> np.ndarray:
-    """Indices reduced modulo the kernel vector (first nonzero entry of v brought into
-    [0, |v_j|)), so that equal module vectors have equal rows."""
-    if kernel is None:
-        return h
-    j = int(np.flatnonzero(kernel)[0])
-    t = np.floor_divide(h[:, j], kernel[j])
-    return h - t[:, None] * kernel[None, :]
-
-
 __all__ = ["PointGroup", "point_group", "POINT_GROUPS", "LAUE_CLASSES", "QUASICRYSTAL_GROUPS",
-           "rotation_matrix", "describe_operation", "index_kernel", "canonical_indices", "cell_parameters_text"]
+           "rotation_matrix", "describe_operation", "cell_parameters_text", "TAU"]

@@ -13,8 +13,8 @@ from __future__ import annotations
 import numpy as np
 
 from ..errors import InvalidInputError
-from .pointgroups import canonical_indices
 from .sym_grid import Sums
+from .sym_quasi import canonical_indices
 
 
 def as_index_rows(indices, n_rows: int, width: int | None, name: str = "indices") -> np.ndarray:
