@@ -166,6 +166,22 @@ def test_trigonal_orientations_on_a_hexagonal_map(rng, symbol, axis):
     assert np.abs(other.intensity - sym.intensity).max() > 0.05     # the orientations differ
 
 
+def test_hexagonal_map_with_gaps_and_sigma_equals_the_mean_of_its_images(rng):
+    cell = cell_from_parameters(3.0, 3.0, 5.0, 90, 90, 120)
+    # ranges not centred, so that many images of h' = h - k fall outside
+    grid = km.QGrid.hkl(cell, h=(-2, 3, 11), k=(-3, 2, 11), l=(-1, 1.5, 6))
+    inten = rng.random(grid.shape)
+    inten[rng.random(grid.shape) < 0.2] = np.nan
+    sigma = 0.05 + rng.random(grid.shape) * 0.1
+    cart = closure([rodrigues([0, 0, 1], math.pi / 3), rodrigues(cell[0], math.pi), -np.eye(3)])
+    mean, err, r_int, n_indep = brute_force(grid, inten, sigma, cartesian_hkl_ops(cart, cell))
+    sym = symmetrize(km.Pattern.from_array(inten, grid, sigma=sigma), "6/mmm")
+    assert np.allclose(sym.intensity, mean, equal_nan=True, rtol=1e-13, atol=1e-15)
+    assert np.allclose(sym.sigma, err, equal_nan=True, rtol=1e-12, atol=1e-15)
+    assert sym.metadata["symmetry"]["r_int"] == pytest.approx(r_int, rel=1e-12)
+    assert sym.metadata["symmetry"]["n_independent"] == n_indep
+
+
 def test_monoclinic_unique_axis_b_versus_c_on_a_map(rng):
     cell = cell_from_parameters(3.0, 4.0, 5.0, 90, 90, 90)   # supports both settings
     grid = km.QGrid.hkl(cell, h=(-1, 1, 3), k=(-1, 1, 3), l=(-1, 1, 3))

@@ -298,6 +298,10 @@ def accumulate(values0: np.ndarray, avail: np.ndarray, var0: np.ndarray | None, 
         rest = int(np.prod(n[1:])) if len(n) > 1 else 1
         rows = max(1, SLAB_POINTS // max(rest, 1))
         for g in others:
+            if g.mode == "int" and _int_by_rows(g, n, flat_v, flat_a, flat_q, flat_a_all, total, count, stab, var):
+                if progress is not None:
+                    progress(1)
+                continue
             for r0 in range(0, int(n[0]) if len(n) else 1, rows):
                 r1 = min(int(n[0]), r0 + rows) if len(n) else 1
                 _slab(g, r0, r1, n, tol, values0, flat_v, flat_a, flat_q, var0, flat_a_all,
@@ -305,6 +309,98 @@ def accumulate(values0: np.ndarray, avail: np.ndarray, var0: np.ndarray | None, 
             if progress is not None:
                 progress(1)
     return Sums(total, count, stab, var, err)
+
+
+def _outer_axis(a: np.ndarray) -> int | None:
+    """An axis o such that, with i_o fixed, every source index depends on at most one of the
+    other axes (then the valid images of a slab i_o = t form a box), or None."""
+    k = len(a)
+    for o in range(k):
+        if all(np.count_nonzero([a[e, d] for e in range(k) if e != o]) <= 1 for d in range(k)):
+            return o
+    return None
+
+
+def _int_by_rows(g, n, flat_v, flat_a, flat_q, all_avail, total, count, stab, var) -> bool:
+    """An integer action as strided views, one slab i_o = t at a time (False: not applicable).
+
+    The source of point i is the flat index C + Σ_e i_e B_e with B_e = Σ_d A[e,d]·stride_d:
+    affine in i, so the images of a box are a strided view of the map. With i_o fixed, each
+    source index x_d = c_d + t·A[o,d] + i_e A[e,d] depends on at most one other axis e, and
+    0 ≤ x_d < n_d bounds i_e to an interval: the valid points of the slab form a box, read as
+    one ``as_strided`` view whose elements all lie inside the map (no index arrays, no
+    out-of-bounds reads). Used for hexagonal operations such as h' = h − k.
+    """
+    from numpy.lib.stride_tricks import as_strided
+
+    k = len(n)
+    if k < 2:
+        return False
+    a = np.rint(g.a).astype(np.int64)
+    c = np.rint(g.c).astype(np.int64)
+    o = _outer_axis(a)
+    if o is None:
+        return False
+    inner = [e for e in range(k) if e != o]
+    strides = [int(np.prod(n[d + 1:])) for d in range(k)]
+    b = [int(sum(int(a[e, d]) * strides[d] for d in range(k))) for e in range(k)]
+    c0 = int(sum(int(c[d]) * strides[d] for d in range(k)))
+    dep = []
+    for d in range(k):
+        nz = [e for e in inner if a[e, d] != 0]
+        dep.append(nz[0] if nz else None)
+    for t in range(int(n[o])):
+        lo = {e: 0 for e in inner}
+        hi = {e: int(n[e]) - 1 for e in inner}
+        empty = False
+        for d in range(k):
+            base = int(c[d]) + t * int(a[o, d])
+            e = dep[d]
+            if e is None:
+                if not 0 <= base < n[d]:
+                    empty = True
+                    break
+                continue
+            s = int(a[e, d])
+            # 0 <= base + s·i_e <= n_d − 1
+            lo_d, hi_d = sorted(((-base) / s, (int(n[d]) - 1 - base) / s))
+            lo[e] = max(lo[e], int(np.ceil(lo_d - 1e-12)))
+            hi[e] = min(hi[e], int(np.floor(hi_d + 1e-12)))
+            if lo[e] > hi[e]:
+                empty = True
+                break
+        if empty:
+            continue
+        shape = tuple(hi[e] - lo[e] + 1 for e in inner)
+        start = c0 + t * b[o] + sum(lo[e] * b[e] for e in inner)
+        region = tuple(t if e == o else slice(lo[e], hi[e] + 1) for e in range(k))
+
+        def view(flat):
+            return as_strided(flat[start:], shape=shape, strides=tuple(b[e] * flat.itemsize for e in inner),
+                              writeable=False)
+
+        total[region] += view(flat_v)
+        if all_avail:
+            count[region] += 1
+        else:
+            count[region] += view(flat_a)
+        if var is not None:
+            var[region] += view(flat_q)
+        # fixed points in the box: x_d = i_d for every d
+        og = dict(zip(inner, np.ogrid[tuple(slice(lo[e], hi[e] + 1) for e in inner)]))
+        fixed = np.bool_(True)
+        for d in range(k):
+            lhs = int(c[d]) + t * int(a[o, d]) + (0 if dep[d] is None else int(a[dep[d], d]) * og[dep[d]])
+            rhs = t if d == o else og[d]
+            fixed = fixed & (lhs == rhs)
+            if not np.any(fixed):
+                break
+        else:
+            nz = np.nonzero(np.broadcast_to(fixed, shape))
+            if len(nz[0]):
+                idx = tuple(t if e == o else nz[inner.index(e)] + lo[e] for e in range(k))
+                stab[idx] += 1
+    return True
 
 
 def _slab(g, r0, r1, n, tol, values0, flat_v, flat_a, flat_q, var0, flat_a_all, second_diff,
