@@ -159,6 +159,9 @@ def symmetrize(pattern: Pattern, group, *, setting: str | None = None, cell=None
                 f"the quasicrystal group {g.name!r} does not act on h, k, l of a lattice; symmetrise "
                 "a map on a Å⁻¹ grid (QGrid.plane/volume) in the kinemap.quasi frame, or an indexed peak "
                 "list (indices=, scheme=)")
+        if grid.cell is None or grid.hkl_origin is None or grid.hkl_steps is None:
+            raise InvalidInputError("the hkl grid has no cell (or no h, k, l origin and steps); rebuild it with "
+                                    "QGrid.hkl(cell, ...)")
         gcell = np.asarray(grid.cell, dtype=np.float64)
         if cell is not None:
             from ..model import as_cell
