@@ -445,3 +445,18 @@ def test_hkl_grid_without_a_cell_is_refused():
     grid.cell = None      # e.g. a map read from a file that lacks the cell
     with pytest.raises(InvalidInputError, match="hkl grid has no cell"):
         symmetrize(km.Pattern.from_array(np.ones(grid.shape), grid), "4/mmm")
+
+
+def test_unequal_steps_and_offset_grids_keep_only_images_on_grid_points(rng):
+    cell = np.diag([4.0, 4.0, 6.0])
+    # h step 0.25, k step 0.5: the 4-fold maps only every other h onto a k grid point
+    grid = km.QGrid.hkl(cell, h=(-1, 1, 9), k=(-1, 1, 5), l=(-1, 1, 3))
+    inten = rng.random(grid.shape)
+    sym = symmetrize(km.Pattern.from_array(inten, grid), "4/mmm")
+    assert np.allclose(sym.intensity, brute_force(grid, inten, None, OPS_4MMM)[0], rtol=1e-13)
+    # h from 0.1: h -> -h never lands on the grid
+    shifted = km.QGrid.hkl(cell, h=(0.1, 1.1, 5), k=(-1, 1, 5), l=0)
+    vals = rng.random(shifted.shape)
+    sym2 = symmetrize(km.Pattern.from_array(vals, shifted), "4/mmm")
+    assert "m normal to [100]" in sym2.metadata["symmetry"]["operations_without_grid_images"]
+    assert np.allclose(sym2.intensity, brute_force(shifted, vals, None, OPS_4MMM)[0], rtol=1e-13)

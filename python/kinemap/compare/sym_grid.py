@@ -13,11 +13,17 @@ points:
 
 * signed permutations of the axes (cubic groups on grids with equal steps): a transposed,
   flipped slice of the array is added to the sum — no index arrays at all;
-* other integer maps (hexagonal groups): integer index arithmetic in slabs of bounded size;
+* other integer maps (hexagonal groups, h' = h − k): the source of a point is an affine
+  function of its index, so each slab i_o = t reads its valid images as one strided view;
+  maps for which that does not hold use integer index arithmetic in slabs of bounded size;
 * non-integer maps (unequal steps): rounded in slabs; images off the grid are left out.
 
+The fixed points of every action (its stabiliser count) are found along the cycles of the
+axis permutation or per slab, so that n = m·|stabiliser| separates the number m of distinct
+images from the number n of operations that reach them.
+
 Quasicrystal rotations are irrational: their images are read by multilinear interpolation
-(``scipy.ndimage.map_coordinates``, order 1), with the leading-order error estimate
+from the 2^d neighbouring grid points, with the leading-order error estimate
 ½ Σ_d t_d(1 − t_d)|Δ²_d I| per image (t_d the fractional position between grid points and
 Δ²_d I the second difference of the map along axis d at the nearest grid point): the
 interpolation-error theorem for linear interpolation, f − p = ½ f''(ξ)(x − x₀)(x − x₁).
@@ -260,6 +266,8 @@ def accumulate(values0: np.ndarray, avail: np.ndarray, var0: np.ndarray | None, 
             perms.setdefault(tuple(pi.tolist()), []).append(g)
         elif g.mode != "none":
             others.append(g)
+        elif progress is not None:
+            progress(1)             # no image of this action lies on the grid
 
     all_avail = bool(avail.all())
     for pi_key, group in perms.items():
