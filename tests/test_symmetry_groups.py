@@ -298,3 +298,10 @@ def test_index_lists_of_every_general_hkl_are_integers():
     for s in ORDERS:
         for t in point_group(s).hkl_operations:
             assert t.dtype == np.int64 and abs(round(np.linalg.det(t))) == 1
+
+
+def test_groups_compare_by_their_operations():
+    assert point_group("m-3m") == point_group("m3m") == point_group("4/m -3 2/m")
+    assert point_group("-3m1") != point_group("-31m")
+    assert point_group("2/m") != point_group("2/m:c")
+    assert len({point_group("m-3m"), point_group("m -3 m"), point_group("432")}) == 2

@@ -167,7 +167,7 @@ def describe_operation(w: np.ndarray, *, lattice: bool = True) -> str:
     return f"-{n} along {text}"
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class PointGroup:
     """A point group: its symbol, setting and operations.
 
@@ -349,6 +349,19 @@ class PointGroup:
 
     def __repr__(self) -> str:
         return f"PointGroup({self.name!r}, system={self.system!r}, order={self.order})"
+
+    def _key(self) -> tuple:
+        return (self.system, self.setting, frozenset(_key_float(np.asarray(w, dtype=np.float64))
+                                                     for w in self.operations))
+
+    def __eq__(self, other) -> bool:
+        """Groups are equal when they have the same operations in the same setting."""
+        if not isinstance(other, PointGroup):
+            return NotImplemented
+        return self._key() == other._key()
+
+    def __hash__(self) -> int:
+        return hash(self._key())
 
 
 def cell_parameters_text(cell: np.ndarray) -> str:
