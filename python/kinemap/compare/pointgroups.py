@@ -7,7 +7,8 @@ point groups and the table of symmetry directions; see docs/references.md):
 =========================  ===================  ==================  ==================
 system (setting)           primary              secondary           tertiary
 =========================  ===================  ==================  ==================
-monoclinic (unique axis)   [010] (b), [001] (c), [100] (a)
+monoclinic                 [010] (unique b),
+                           [001] (c), [100] (a)
 orthorhombic               [100]                [010]               [001]
 tetragonal                 [001]                [100]               [1-10]
 trigonal, hexagonal axes   [001]                [100]               [1-10]
@@ -165,6 +166,12 @@ def describe_operation(w: np.ndarray, *, lattice: bool = True) -> str:
     if n == 2:
         return f"m normal to {text}"
     return f"-{n} along {text}"
+
+
+def _frozen(a: np.ndarray) -> np.ndarray:
+    a = np.ascontiguousarray(a)
+    a.setflags(write=False)      # groups are cached and shared: their matrices stay fixed
+    return a
 
 
 @dataclass(frozen=True, eq=False)
@@ -399,11 +406,11 @@ def _named_group(ops, system, setting, crystallographic) -> PointGroup:
         ref = _reference_cell(system, setting)
         w = _sort_ops(full).astype(np.int64)
         cart = np.einsum("ij,njk,kl->nil", ref.T, w.astype(np.float64), np.linalg.inv(ref).T)
-        return PointGroup(symbol, setting, system, w, cart)
+        return PointGroup(symbol, setting, system, _frozen(w), _frozen(cart))
     full = _closure([np.asarray(o, dtype=np.float64) for o in ops], _key_float, False)
     keys = frozenset(_key_float(w) for w in full)
     symbol = _quasi_catalogue(system).get(keys, "?")
-    w = _sort_ops(full)
+    w = _frozen(_sort_ops(full))
     return PointGroup(symbol, setting, system, w, w)
 
 
