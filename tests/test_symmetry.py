@@ -441,8 +441,10 @@ def test_a_map_too_large_for_the_memory_left_is_refused(monkeypatch):
 
 
 def test_hkl_grid_without_a_cell_is_refused():
-    grid = km.QGrid.hkl(np.eye(3) * 4.0, h=(-1, 1, 3), k=(-1, 1, 3), l=0)
-    grid.cell = None      # e.g. a map read from a file that lacks the cell
+    import dataclasses
+
+    full = km.QGrid.hkl(np.eye(3) * 4.0, h=(-1, 1, 3), k=(-1, 1, 3), l=0)
+    grid = dataclasses.replace(full, cell=None)    # e.g. a map read from a file that lacks the cell
     with pytest.raises(InvalidInputError, match="hkl grid has no cell"):
         symmetrize(km.Pattern.from_array(np.ones(grid.shape), grid), "4/mmm")
 
