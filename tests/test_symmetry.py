@@ -151,6 +151,23 @@ def test_random_map_equals_the_mean_of_its_images_m3m(rng):
     assert sym.metadata["symmetry"]["n_independent"] == n_indep
 
 
+def test_random_cube_with_gaps_and_sigma_m3m(rng):
+    # equal axes: all sign patterns of a permutation are summed as a product of flips;
+    # the grid is not centred, so the flips are truncated at one end
+    grid = km.QGrid.hkl(np.eye(3) * 4.0, h=(-1.0, 1.5, 11), k=(-1.0, 1.5, 11), l=(-1.0, 1.5, 11))
+    inten = rng.random(grid.shape)
+    inten[rng.random(grid.shape) < 0.1] = np.nan
+    sigma = 0.05 + 0.1 * rng.random(grid.shape)
+    perms = [(0, 1, 2), (1, 2, 0), (2, 0, 1), (1, 0, 2), (0, 2, 1), (2, 1, 0)]
+    ops = signed_permutations(perms, list(product([1, -1], repeat=3)))
+    mean, err, r_int, n_indep = brute_force(grid, inten, sigma, ops)
+    sym = symmetrize(km.Pattern.from_array(inten, grid, sigma=sigma), "m-3m")
+    assert np.allclose(sym.intensity, mean, equal_nan=True, rtol=1e-13, atol=1e-15)
+    assert np.allclose(sym.sigma, err, equal_nan=True, rtol=1e-12, atol=1e-15)
+    assert sym.metadata["symmetry"]["r_int"] == pytest.approx(r_int, rel=1e-12)
+    assert sym.metadata["symmetry"]["n_independent"] == n_indep
+
+
 @pytest.mark.parametrize("symbol,axis", [("-3m1", "a"), ("-31m", "a-b")])
 def test_trigonal_orientations_on_a_hexagonal_map(rng, symbol, axis):
     cell = cell_from_parameters(3.0, 3.0, 5.0, 90, 90, 120)

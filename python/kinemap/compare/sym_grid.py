@@ -231,6 +231,58 @@ def _transposed(a: np.ndarray, axes, block: int = 16) -> np.ndarray:
     return out
 
 
+def _sign_product(group, pi) -> list | None:
+    """For the actions of one axis permutation: the flip centre c of each output axis (None
+    where the axis is left as it is) when the actions are exactly every combination of
+    'left as it is' and 'i -> c - i' per axis; otherwise None."""
+    k = len(pi)
+    options: list[set] = [set() for _ in range(k)]
+    for g in group:
+        _, sg = _perm_parts(g.a)
+        for d in range(k):
+            options[int(pi[d])].add((int(sg[d]), int(round(float(g.c[d])))))
+    flips = []
+    size = 1
+    for opt in options:
+        if opt == {(1, 0)}:
+            flips.append(None)
+        elif len(opt) == 2 and (1, 0) in opt:
+            (s, c), = opt - {(1, 0)}
+            if s != -1:
+                return None
+            flips.append(c)
+            size *= 2
+        else:
+            return None
+    return flips if size == len(group) else None
+
+
+def _flip_all(y: np.ndarray, flips) -> None:
+    """y ← Π_e (1 + F_e) y in place, F_e y[…, i, …] = y[…, c_e − i, …] (0 where c_e − i is
+    off the grid). Pairs (i, c − i) are summed through a half-size buffer, so numpy never
+    needs a full temporary for the overlapping operands."""
+    for axis, c in enumerate(flips):
+        if c is None:
+            continue
+        n_ax = y.shape[axis]
+        lo, hi = max(0, c - (n_ax - 1)), min(n_ax - 1, c)
+        if hi < lo:
+            continue
+        length = hi - lo + 1
+        m = length // 2
+        pre = (slice(None),) * axis
+        if m:
+            a = y[pre + (slice(lo, lo + m),)]
+            stop = hi - m
+            b = y[pre + (slice(hi, stop if stop >= 0 else None, -1),)]
+            tmp = a + b
+            a[...] = tmp
+            b[...] = tmp
+            del tmp
+        if length % 2:
+            y[pre + (lo + m,)] *= 2
+
+
 def accumulate(values0: np.ndarray, avail: np.ndarray, var0: np.ndarray | None, actions, *, tol: float,
                second_diff=None, progress=None) -> Sums:
     """Sum the values at the images of every action (arrays over the active axes).
@@ -273,30 +325,61 @@ def accumulate(values0: np.ndarray, avail: np.ndarray, var0: np.ndarray | None, 
     for pi_key, group in perms.items():
         pi = np.array(pi_key, dtype=np.int64)
         inv = np.argsort(pi)             # output axis e reads source axis inv[e]
-        if np.array_equal(inv, np.arange(len(n))):
-            tv, ta, tq = values0, avail, var0
+        same = np.array_equal(inv, np.arange(len(n)))
+        # the product form needs the permuted axes to have equal lengths
+        flips = _sign_product(group, pi) if all(n[inv[e]] == n[e] for e in range(len(n))) else None
+        if flips is not None:
+            # every sign pattern of this permutation is present: Σ_s (images) = Π_e (1 + F_e) J
+            tv = values0.copy() if same else _transposed(values0, inv)
+            _flip_all(tv, flips)
+            total += tv
+            del tv
+            if all_avail:
+                factor = np.ones((), dtype=count.dtype)
+                for e, cf in enumerate(flips):
+                    f = np.ones(int(n[e]), dtype=count.dtype)
+                    if cf is not None:
+                        t = np.arange(int(n[e]))
+                        f += ((cf - t >= 0) & (cf - t < n[e])).astype(count.dtype)
+                    factor = np.multiply.outer(factor, f) if factor.ndim else f
+                count += factor
+            else:
+                ta = avail.copy() if same else _transposed(avail, inv)
+                _flip_all(ta, flips)
+                count += ta
+                del ta
+            if var is not None:
+                tq = var0.copy() if same else _transposed(var0, inv)
+                _flip_all(tq, flips)
+                var += tq
+                del tq
         else:
-            tv = _transposed(values0, inv)
-            ta = None if all_avail else _transposed(avail, inv)
-            tq = None if var0 is None else _transposed(var0, inv)
+            if same:
+                tv, ta, tq = values0, avail, var0
+            else:
+                tv = _transposed(values0, inv)
+                ta = None if all_avail else _transposed(avail, inv)
+                tq = None if var0 is None else _transposed(var0, inv)
+            for g in group:
+                _, sg = _perm_parts(g.a)
+                rng = _perm_ranges(g.c.astype(np.int64), pi, sg, n)
+                if rng is not None:
+                    out_sl, src_sl = rng
+                    total[out_sl] += tv[src_sl]
+                    if all_avail:
+                        count[out_sl] += 1
+                    else:
+                        count[out_sl] += ta[src_sl]
+                    if var is not None:
+                        var[out_sl] += tq[src_sl]
+            del tv, ta, tq
         for g in group:
             _, sg = _perm_parts(g.a)
-            rng = _perm_ranges(g.c.astype(np.int64), pi, sg, n)
-            if rng is not None:
-                out_sl, src_sl = rng
-                total[out_sl] += tv[src_sl]
-                if all_avail:
-                    count[out_sl] += 1
-                else:
-                    count[out_sl] += ta[src_sl]
-                if var is not None:
-                    var[out_sl] += tq[src_sl]
             fixed = _perm_fixed(g.c.astype(np.int64), pi, sg, n)
             if fixed is not None:
                 stab[fixed] += 1
             if progress is not None:
                 progress(1)
-        del tv, ta, tq
 
     if others:
         flat_v = values0.reshape(-1)
