@@ -86,8 +86,8 @@ def main(argv=None) -> None:
     for group, cell, label in (("m-3m", cubic, "cubic"), ("6/mmm", hexa, "hexagonal")):
         grid = hkl_volume(cell, args.small)
         pat = km.Pattern.from_array(rng.random(grid.shape), grid)
-        sym, t_k, m_k = measure(lambda: km.symmetrize(pat, group))
-        ref, t_r, m_r = measure(lambda: reference_average(pat.intensity, grid, group), repeat=1)
+        sym, t_k, m_k = measure(lambda p=pat, g=group: km.symmetrize(p, g))
+        ref, t_r, m_r = measure(lambda p=pat, gr=grid, g=group: reference_average(p.intensity, gr, g), repeat=1)
         assert np.allclose(sym.intensity, ref, rtol=1e-12)
         print(f"{f'{group} on a {args.small}^3 hkl volume ({label})':44s} {t_k:10.2f} {m_k / 2**20:9.0f} "
               f"{t_r:12.2f} {m_r / 2**20:9.0f} {t_r / t_k:6.1f}")
@@ -95,7 +95,7 @@ def main(argv=None) -> None:
     for group, cell, label in (("m-3m", cubic, "cubic"), ("6/mmm", hexa, "hexagonal")):
         grid = hkl_volume(cell, args.big)
         pat = km.Pattern.from_array(rng.random(grid.shape), grid)
-        _, t_k, m_k = measure(lambda: km.symmetrize(pat, group))
+        _, t_k, m_k = measure(lambda p=pat, g=group: km.symmetrize(p, g))
         print(f"{f'{group} on a {args.big}^3 hkl volume ({label})':44s} {t_k:10.2f} {m_k / 2**20:9.0f} "
               f"{'-':>12s} {'-':>9s} {'-':>6s}")
         del pat

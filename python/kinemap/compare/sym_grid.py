@@ -197,7 +197,7 @@ def _perm_fixed(c, pi, sg, n):
         vals = {start: t}
         ok = np.ones(len(t), dtype=bool)
         cur = t
-        for j, d in enumerate(cyc):
+        for d in cyc:
             nxt = int(sg[d]) * (cur - int(c[d]))           # i_π(d)
             e = int(pi[d])
             if e == start:
@@ -466,8 +466,11 @@ def _int_by_rows(g, n, flat_v, flat_a, flat_q, all_avail, total, count, stab, va
         start = c0 + t * b[o] + sum(lo[e] * b[e] for e in inner)
         region = tuple(t if e == o else slice(lo[e], hi[e] + 1) for e in range(k))
 
-        def view(flat):
-            return as_strided(flat[start:], shape=shape, strides=tuple(b[e] * flat.itemsize for e in inner),
+        steps = [b[e] for e in inner]
+
+        def view(flat, start=start, shape=shape, steps=steps):
+            # every element of this view is a valid image inside the map (see above)
+            return as_strided(flat[start:], shape=shape, strides=tuple(s * flat.itemsize for s in steps),
                               writeable=False)
 
         total[region] += view(flat_v)
