@@ -71,7 +71,7 @@ def main() -> None:
 
     t0 = time.perf_counter()
     cluster = distributed.LocalCluster(n_workers=os.cpu_count(), threads_per_worker=1, processes=True,
-                                       dashboard_address=None)
+                                       dashboard_address=":0")
     client = distributed.Client(cluster)
     t_start = time.perf_counter() - t0
     try:

@@ -20,7 +20,7 @@ from .scatter import KinematicApproximationWarning, OffLatticeWarning, scatter
 from .io import open_model, write_h5md
 from .frames import FrameAverages, average_frames
 from .geometry import Detector, bin_frames, expected_counts, read_frames
-from .compare import BraggExclusion, compare, delta_pdf, open_map, rank_models
+from .compare import BraggExclusion, compare, delta_pdf, open_map, rank_models, symmetrize
 
 __all__ = [
     "__version__",
@@ -49,6 +49,7 @@ __all__ = [
     "open_map",
     "delta_pdf",
     "BraggExclusion",
+    "symmetrize",
 ]
 
 # Sub-packages with heavier imports (matplotlib, scipy) load on first use: km.plot, km.quasi.

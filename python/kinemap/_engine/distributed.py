@@ -229,7 +229,7 @@ def _client(cluster):
         from .._shared.validate import cores
 
         lc = distributed.LocalCluster(n_workers=cores(), threads_per_worker=1, processes=True,
-                                      dashboard_address=None)
+                                      dashboard_address=":0")
         return distributed.Client(lc), True
     if isinstance(cluster, str):
         try:
@@ -308,9 +308,12 @@ def _run_on_cluster(cluster, source, grid, probe, blocks, todo, n_chunks, chunk_
         workers = client.nthreads()  # asks the scheduler now (scheduler_info() may be cached)
         summary["workers"] = len(workers)
         check_workers(client)
-        src = client.scatter(source, broadcast=True) if isinstance(source, Model) else source
-        grid_f = client.scatter(grid, broadcast=True)
-        probe_f = client.scatter(probe, broadcast=True)
+        # The model (when in memory), grid and probe go to the cluster once, as the results of
+        # tasks: the scheduler can recompute them when the workers holding them are lost
+        # (scattered data could not be), and every worker fetches them once.
+        src = _held(client, source) if isinstance(source, Model) else source
+        grid_f = _held(client, grid)
+        probe_f = _held(client, probe)
         parts: dict[int, dict[int, np.ndarray]] = {}
         owner = {}
         # A bounded number of blocks in flight keeps the results held on the client small.
@@ -347,6 +350,14 @@ def _run_on_cluster(cluster, source, grid, probe, blocks, todo, n_chunks, chunk_
     finally:
         if owned:
             _close(client)
+
+
+def _identity(obj):
+    return obj
+
+
+def _held(client, obj):
+    return client.submit(_identity, obj, pure=False)
 
 
 def check_workers(client) -> None:
