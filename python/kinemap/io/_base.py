@@ -34,6 +34,9 @@ from ._species import LABEL_SCAN_ATOMS, SPECIES_HINT, SpeciesSupply, SpeciesTabl
 #: Atoms per chunk when a reader is asked without a size (about 50 MB of arrays).
 DEFAULT_READ_ATOMS = 1 << 20
 
+#: Largest box edge component accepted from a file, in Å (one metre is 10¹⁰ Å).
+MAX_EDGE = 1e12
+
 #: Atoms whose species ``describe()`` reads at most (it stays quick on any file).
 DESCRIBE_SCAN_ATOMS = 1 << 20
 
@@ -483,6 +486,12 @@ def cell_from_edges(edges: np.ndarray, where: str) -> np.ndarray:
         mat[:d, :d] = e
     else:
         raise ModelFileError(f"{where}: box edges must have shape [D] or [D][D] with D = 2 or 3, got {e.shape}")
+    if not np.isfinite(mat).all():
+        raise ModelFileError(f"{where}: box edges have non-finite entries {mat.tolist()}")
+    big = float(np.abs(mat).max())
+    if big > MAX_EDGE:
+        raise ModelFileError(f"{where}: box edges reach {big:.3g} angstrom (more than {MAX_EDGE:.0e}); an atomistic "
+                             "model's box is far smaller: check the values and the unit")
     try:
         return as_cell(mat, name=where)
     except InvalidInputError as exc:

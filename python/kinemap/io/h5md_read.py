@@ -458,11 +458,16 @@ class H5MDSource(FileSource):
                 p[:, : ix.dim] = raw
                 if ix.dim == 2:
                     p[:, 2] = 0.0
+                check_chunk(p, start, f"{where}: {pos_el.value_path}", self.frame)
                 if ix.scale != 1.0:
                     p[:, : ix.dim] *= ix.scale
-                check_chunk(p, start, f"{where}: {pos_el.value_path}", self.frame)
+                    check_chunk(p, start, f"{where}: {pos_el.value_path} (in angstrom)", self.frame)
                 if ix.image is not None:
                     img = self._per_atom(f, ix.image, start, stop).astype(np.float64)
+                    if not np.isfinite(img).all():
+                        j = int(np.flatnonzero(~np.isfinite(img).all(axis=1))[0])
+                        raise ModelFileError(f"{where}: {ix.image.value_path}: atom {start + j}, frame {self.frame} "
+                                             f"has non-finite image counts {img[j].tolist()}")
                     full = np.zeros((stop - start, 3))
                     full[:, : ix.dim] = img
                     p += full @ self._edges

@@ -243,6 +243,7 @@ class PlainSource(FileSource):
             for start in range(0, self.n_atoms, chunk_atoms):
                 stop = min(self.n_atoms, start + chunk_atoms)
                 p = self._read(f, pp, ix.framed, start, stop, (slice(None),)).astype(np.float64)
+                check_chunk(p, start, f"{self.path}: /{pp}", self.frame)
                 if ix.fractional:
                     p = p @ self._file_box
                 elif ix.scale != 1.0:

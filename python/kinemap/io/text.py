@@ -426,9 +426,10 @@ class TextSource(FileSource):
         for done, tok in self._blocks(min(chunk_atoms, _BLOCK_LINES) if chunk_atoms > _BLOCK_LINES else chunk_atoms):
             line = fr.line + done
             p = self._numbers(tok, fr.pos_cols, line, "coordinates")
+            check_chunk(p, done, where, None)
             if fr.scaled:
                 p = p @ fr.cell + fr.origin
-            check_chunk(p, done, where, None)
+                check_chunk(p, done, where, None)
             idx, labels = self._chunk_labels(done, done + len(tok), None, lambda: self._species(tok, done))
             occ = b = ids = None
             if fr.occ_col is not None:
