@@ -212,7 +212,8 @@ def mutate_hdf5(path, rng) -> str:
             flat = data.reshape(-1)
             flat[rng.integers(flat.size)] = [np.nan, np.inf, -1e300, -7, 1e18][rng.integers(5)]
             try:
-                obj[...] = data.astype(obj.dtype)
+                with np.errstate(invalid="ignore", over="ignore"):
+                    obj[...] = data.astype(obj.dtype)
             except (ValueError, TypeError, OverflowError):
                 pass
             return f"a value of {name}"

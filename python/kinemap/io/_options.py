@@ -42,7 +42,8 @@ def parse_cell(cell) -> np.ndarray | None:
     if arr.shape == (6,):
         return cell_from_parameters(*arr.tolist())
     if arr.shape == (3,):
-        return cell_from_parameters(*arr.tolist(), 90.0, 90.0, 90.0)
+        cell_from_parameters(*arr.tolist(), 90.0, 90.0, 90.0)  # refuses lengths that are not positive
+        return np.diag(arr)  # exact zeros off the diagonal
     if arr.shape == (3, 3):
         return as_cell(arr, "cell")
     raise InvalidInputError(f"`cell` must be a 3x3 array (rows a, b, c), six lattice parameters a,b,c,alpha,beta,gamma "
