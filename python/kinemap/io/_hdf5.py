@@ -103,6 +103,18 @@ def attr_strs(value) -> list[str]:
     return [attr_str(v) for v in np.asarray(value).reshape(-1)]
 
 
+def attr_numbers(value, where: str, *, whole: bool = False) -> np.ndarray:
+    """An attribute of numbers as a flat float64 (or int64 with `whole`) array; anything else
+    (strings, complex numbers, compound values) is refused naming `where`."""
+    arr = np.asarray(value)
+    kinds = "biu" if whole else "biuf"
+    if arr.dtype.kind not in kinds or arr.size > SMALL_DATASET_LIMIT:
+        want = "whole numbers" if whole else "real numbers"
+        raise ModelFileError(f"{where} must hold {want}, got {arr.dtype} {arr.reshape(-1)[:6].tolist()}")
+    out = arr.astype(np.int64 if whole else np.float64).reshape(-1)
+    return out
+
+
 def _refuse(where: str, what: str) -> ModelFileError:
     return ModelFileError(f"{where}: {what}; kinemap reads a model only from the file itself unless "
                           f"allowed: {ALLOW_HINT}")
@@ -196,5 +208,5 @@ def read_small(ds, where: str, limit: int = SMALL_DATASET_LIMIT) -> np.ndarray:
         raise ModelFileError(f"{where}: cannot read {ds.name}: {exc}") from None
 
 
-__all__ = ["open_h5", "tree", "attr_str", "attr_strs", "get_checked", "check_storage", "read_small",
+__all__ = ["open_h5", "tree", "attr_str", "attr_strs", "attr_numbers", "get_checked", "check_storage", "read_small",
            "ALLOW_HINT", "SMALL_DATASET_LIMIT"]

@@ -28,7 +28,7 @@ import numpy as np
 from .._shared.memory import check_fits
 from .._shared.validate import file_name
 from ..errors import InvalidInputError, ModelFileError
-from ._hdf5 import attr_strs, get_checked, h5py_module, open_h5, tree
+from ._hdf5 import attr_numbers, attr_strs, get_checked, h5py_module, open_h5, tree
 
 #: Suffixes that make a ``species=`` string a file of labels rather than one label.
 LABEL_FILE_SUFFIXES = (".txt", ".dat", ".csv", ".lst", ".list", ".labels", ".npy")
@@ -242,10 +242,8 @@ def file_names_attribute(obj, where: str) -> dict[int, str] | None:
         return None
     labels = attr_strs(names)
     codes = obj.attrs.get("codes")
-    try:
-        codes = list(range(len(labels))) if codes is None else [int(c) for c in np.asarray(codes).reshape(-1)]
-    except (TypeError, ValueError, OverflowError):
-        raise ModelFileError(f"{where}: attribute 'codes' must hold whole numbers") from None
+    codes = (list(range(len(labels))) if codes is None
+             else attr_numbers(codes, f"{where}: attribute 'codes'", whole=True).tolist())
     if len(codes) != len(labels):
         raise ModelFileError(f"{where}: attributes 'codes' and 'names' have different lengths")
     return dict(zip(codes, labels))

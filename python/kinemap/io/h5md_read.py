@@ -49,7 +49,7 @@ from ._base import (
     length_scale,
     normalise_frame,
 )
-from ._hdf5 import attr_str, attr_strs, get_checked, h5py_module, open_h5, read_small, tree
+from ._hdf5 import attr_numbers, attr_str, attr_strs, get_checked, h5py_module, open_h5, read_small, tree
 from ._species import SPECIES_HINT, LabelColumn, file_names_attribute
 
 #: Errors that a damaged or unexpected file layout can raise inside h5py/NumPy; turned into
@@ -103,8 +103,8 @@ class _Element:
                                              f"has {self.n_frames} frames (mismatched frame counts)")
                     setattr(self, f"{name}_path", f"{path}/{name}")
                 elif sds.ndim == 0:  # fixed interval, H5MD 1.1 (offset attribute optional)
-                    off = np.asarray(sds.attrs.get("offset", 0)).reshape(-1)
-                    rule = (float(off[0]) if off.size else 0.0, float(np.asarray(sds[()])))
+                    off = attr_numbers(sds.attrs.get("offset", 0), f"{where}: {path}/{name} attribute 'offset'")
+                    rule = (float(off[0]) if off.size else 0.0, float(np.asarray(sds[()], dtype=np.float64)))
                     setattr(self, f"{name}_rule", rule)
                 else:
                     raise ModelFileError(f"{where}: {path}/{name} must be a scalar or [frame], got shape {list(sds.shape)}")
@@ -172,9 +172,9 @@ class _H5MDIndex:
         if isinstance(h, h5py.Group):
             try:
                 if "version" in h.attrs:
-                    self.h5md_version = [int(x) for x in np.asarray(h.attrs["version"]).reshape(-1)][:4]
-            except (TypeError, ValueError, OverflowError):
-                self.h5md_version = None
+                    self.h5md_version = attr_numbers(h.attrs["version"], "version", whole=True)[:4].tolist()
+            except ModelFileError:
+                self.h5md_version = None  # only reported, never needed
             cr = self._get(f, "/h5md/creator")
             if cr is not None:
                 self.creator = attr_str(cr.attrs.get("name", ""))[:200] or None
@@ -259,10 +259,10 @@ class _H5MDIndex:
         bpath = f"{gpath}/box"
         dim = box.attrs.get("dimension")
         if dim is not None:
-            try:
-                dval = int(np.asarray(dim).reshape(-1)[0])
-            except (TypeError, ValueError, IndexError, OverflowError):
-                raise ModelFileError(f"{where}: {bpath} attribute 'dimension' must be a whole number, got {dim!r}") from None
+            dims = attr_numbers(dim, f"{where}: {bpath} attribute 'dimension'", whole=True)
+            if dims.size != 1:
+                raise ModelFileError(f"{where}: {bpath} attribute 'dimension' must be one whole number, got {dims[:6].tolist()}")
+            dval = int(dims[0])
             if dval != self.dim:
                 raise ModelFileError(f"{where}: {bpath} attribute 'dimension' is {dval} "
                                      f"but {self.position.value_path} has D = {self.dim}")
@@ -296,10 +296,9 @@ class _H5MDIndex:
                 self.edges = el
                 triclinic = raw.ndim == 2
         elif "edges" in box.attrs:
-            try:
-                raw = np.asarray(box.attrs["edges"], dtype=np.float64)
-            except (TypeError, ValueError):
-                raise ModelFileError(f"{where}: {bpath} attribute 'edges' must hold numbers") from None
+            raw = np.asarray(box.attrs["edges"])
+            shape = raw.shape
+            raw = attr_numbers(raw, f"{where}: {bpath} attribute 'edges'").reshape(shape)
             self.edges_where = f"{where}: {bpath} attribute 'edges'"
             self.fixed_cell = self._cell(raw * self.scale, self.edges_where)
             self.edges = "attribute"

@@ -46,7 +46,7 @@ from ._base import (
     length_scale,
     normalise_frame,
 )
-from ._hdf5 import attr_str, get_checked, h5py_module, open_h5, read_small, tree
+from ._hdf5 import attr_numbers, attr_str, get_checked, h5py_module, open_h5, read_small, tree
 from ._species import SPECIES_HINT, LabelColumn
 from .h5md_read import LAYOUT_ERRORS
 
@@ -93,10 +93,10 @@ class _PlainIndex:
             raise ModelFileError(f"{where}: /{pp} holds no frames")
         if ds.dtype.kind not in "iuf":
             raise ModelFileError(f"{where}: /{pp} must hold real numbers, got type {ds.dtype}")
-        try:
-            self.fractional = bool(np.asarray(ds.attrs.get("fractional", 0)).reshape(-1)[0])
-        except (TypeError, ValueError, IndexError):
-            raise ModelFileError(f"{where}: /{pp} attribute 'fractional' must be 0 or 1") from None
+        frac = attr_numbers(ds.attrs.get("fractional", 0), f"{where}: /{pp} attribute 'fractional'", whole=True)
+        if frac.size != 1 or frac[0] not in (0, 1):
+            raise ModelFileError(f"{where}: /{pp} attribute 'fractional' must be 0 or 1, got {frac[:6].tolist()}")
+        self.fractional = bool(frac[0])
         self.scale = length_scale(ds.attrs.get("unit"), f"{where}: /{pp} attribute 'unit'")
         # cell: checked now, read per frame
         self.cell_framed = None
