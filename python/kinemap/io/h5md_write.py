@@ -6,20 +6,15 @@ The file has the layout the reader (:mod:`kinemap.io.h5md_read`) documents: posi
 ``"0.01 nm+2"``) and ``u_aniso`` ([N][3][3] Cartesian U in Å², unit ``"0.01 nm+2"``).
 
 Failures while writing
-    The HDF5 library does not survive a write error inside its own close (a full disk,
-    a file-size limit): it raises, then crashes the process at the next call on the file or
-    when Python frees the file's objects. So HDF5 never sees an I/O error here: it writes
-    through a file object (h5py's file-object driver) that records the first error and
-    quietly drops the rest of the writing; the writer then stops, lets HDF5 close cleanly,
-    removes the temporary file and raises the recorded error (e.g. ``OSError`` ENOSPC). The
-    same holds for Ctrl-C arriving while HDF5 writes. Nothing is left under the final name
-    or the temporary one.
+    HDF5 writes through :class:`kinemap.io._guarded.GuardedFile`, which keeps I/O errors
+    from the HDF5 library (it crashes on a write error inside its own close). After a
+    failure the writer stops, lets HDF5 close cleanly, removes the temporary file and raises
+    the recorded error (e.g. ``OSError`` ENOSPC); the same holds for Ctrl-C arriving while
+    HDF5 writes. Nothing is left under the final name or the temporary one.
 """
 
 from __future__ import annotations
 
-import io
-import os
 from pathlib import Path
 from typing import Iterable, Sequence
 
@@ -28,117 +23,11 @@ import numpy as np
 from .._shared.output import AtomicFile, _HeldSignals
 from ..errors import InvalidInputError
 from ..model import Model, as_cell
-
-#: Bytes of writes kept in memory after a failure so that HDF5 reads back what it believes
-#: it wrote while it closes (metadata only; raw data beyond this is dropped).
-_OVERLAY_LIMIT = 64 << 20
+from ._guarded import GuardedFile
 
 #: h5py objects of files whose close failed anyway: kept alive, because freeing them would
 #: call into a broken HDF5 file.
 _QUARANTINE: list = []
-
-
-class _GuardedFile(io.RawIOBase):
-    """The temporary file as HDF5 sees it: positional reads and writes on a descriptor;
-    the first error (or KeyboardInterrupt) is recorded in :attr:`failure`, never raised
-    into HDF5, and later writes go to a small in-memory overlay instead of the disk."""
-
-    def __init__(self, path: Path):
-        super().__init__()
-        self.fd = os.open(path, os.O_RDWR)
-        self.pos = 0
-        self.failure: BaseException | None = None
-        self._overlay: list[tuple[int, bytes]] = []
-        self._overlay_bytes = 0
-
-    def readable(self) -> bool:
-        return True
-
-    def writable(self) -> bool:
-        return True
-
-    def seekable(self) -> bool:
-        return True
-
-    def seek(self, pos: int, whence: int = 0) -> int:
-        if whence == 0:
-            self.pos = int(pos)
-        elif whence == 1:
-            self.pos += int(pos)
-        else:
-            self.pos = self._size() + int(pos)
-        return self.pos
-
-    def tell(self) -> int:
-        return self.pos
-
-    def _size(self) -> int:
-        try:
-            size = os.fstat(self.fd).st_size
-        except OSError:
-            size = 0
-        for off, data in self._overlay:
-            size = max(size, off + len(data))
-        return size
-
-    def _record(self, exc: BaseException) -> None:
-        if self.failure is None:
-            self.failure = exc
-
-    def readinto(self, b) -> int:
-        view = memoryview(b).cast("B")
-        n = len(view)
-        try:
-            data = os.pread(self.fd, n, self.pos) if n else b""
-        except BaseException as exc:  # noqa: BLE001 - recorded and re-raised by the writer
-            self._record(exc)
-            data = b""
-        view[: len(data)] = data
-        view[len(data):] = bytes(n - len(data))
-        lo, hi = self.pos, self.pos + n
-        for off, blob in self._overlay:  # later writes win
-            a, z = max(lo, off), min(hi, off + len(blob))
-            if a < z:
-                view[a - lo: z - lo] = blob[a - off: z - off]
-        self.pos += n
-        return n
-
-    def write(self, b) -> int:
-        view = memoryview(b).cast("B")
-        n = len(view)
-        if self.failure is None:
-            try:
-                done = 0
-                while done < n:
-                    done += os.pwrite(self.fd, view[done:], self.pos + done)
-            except BaseException as exc:  # noqa: BLE001 - recorded and re-raised by the writer
-                self._record(exc)
-        if self.failure is not None and self._overlay_bytes + n <= _OVERLAY_LIMIT:
-            self._overlay.append((self.pos, bytes(view)))
-            self._overlay_bytes += n
-        self.pos += n
-        return n
-
-    def truncate(self, size=None) -> int:
-        size = self.pos if size is None else int(size)
-        if self.failure is None:
-            try:
-                os.ftruncate(self.fd, size)
-            except BaseException as exc:  # noqa: BLE001
-                self._record(exc)
-        return size
-
-    def flush(self) -> None:
-        return None
-
-    def close(self) -> None:
-        if self.fd >= 0:
-            try:
-                os.close(self.fd)
-            except OSError as exc:
-                self._record(exc)
-            self.fd = -1
-        super().close()
 
 
 class H5MDWriter:
@@ -219,7 +108,7 @@ class H5MDWriter:
         self._cell_written = False
         base = np.int8 if len(labels) < 127 else (np.int16 if len(labels) < 32000 else np.int32)
         try:
-            self._sink = _GuardedFile(self.tmp)
+            self._sink = GuardedFile(self.tmp)
             self.f = h5py.File(self._sink, "w")
             f = self.f
             h = f.create_group("h5md")

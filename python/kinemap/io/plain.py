@@ -48,7 +48,7 @@ from ._base import (
 )
 from ._hdf5 import attr_numbers, attr_str, get_checked, h5py_module, open_h5, read_small, tree
 from ._species import SPECIES_HINT, LabelColumn
-from .h5md_read import LAYOUT_ERRORS
+from .h5md_layout import LAYOUT_ERRORS
 
 #: Default dataset paths of the plain layout.
 PLAIN_PATHS = {"positions": "positions", "species": "species", "occupancy": "occupancy",
