@@ -81,6 +81,8 @@ class ChunkModel(Model):
 
 def check_chunk(positions: np.ndarray, offset: int, where: str, frame: int | None) -> None:
     """Refuse non-finite coordinates, naming the atom index, frame and dataset."""
+    if np.isfinite(positions).all():  # the whole-array test is fast; find the atom only when needed
+        return
     ok = np.isfinite(positions).all(axis=1)
     if not ok.all():
         j = int(np.flatnonzero(~ok)[0])

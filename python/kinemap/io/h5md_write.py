@@ -260,9 +260,8 @@ class H5MDWriter:
         if p.ndim != 2 or p.shape[1] != 3:
             raise InvalidInputError(f"`positions` must be an (n, 3) array, got {p.shape}")
         self._check_range(start, len(p))
-        ok = np.isfinite(p).all(axis=1)
-        if not ok.all():
-            j = int(np.flatnonzero(~ok)[0])
+        if not np.isfinite(p).all():  # the whole-array test is fast; find the atom only when needed
+            j = int(np.flatnonzero(~np.isfinite(p).all(axis=1))[0])
             raise InvalidInputError(f"atom {start + j} of frame {frame} has non-finite coordinates {p[j].tolist()}")
         self.value[frame, start:start + len(p), :] = p
         self._check()
