@@ -436,3 +436,40 @@ def test_existing_output_kept_unless_overwrite(tmp_path, rng):
     assert out.read_bytes() == b"keep me"
     convert(src, out, overwrite=True)
     np.testing.assert_array_equal(open_model(out).read().positions, open_model(src).read().positions)
+
+
+@pytest.mark.parametrize("fail_at", [0, 3, 8, 40])
+@pytest.mark.parametrize("error", ["ENOSPC", "KeyboardInterrupt"])
+def test_write_failures_inside_hdf5_leave_nothing(tmp_path, rng, monkeypatch, fail_at, error):
+    """A full disk (ENOSPC) or Ctrl-C at the n-th write the HDF5 library makes: the writer
+    raises that error after HDF5 has closed cleanly, and no file is left. (In-process: the
+    process must survive it, which the HDF5 library alone does not.)"""
+    import errno
+
+    from kinemap.io import _guarded
+
+    real = os.pwrite
+    calls = []
+
+    def failing(fd, data, offset):
+        calls.append(len(data))
+        if len(calls) > fail_at:
+            if error == "ENOSPC":
+                raise OSError(errno.ENOSPC, "No space left on device")
+            raise KeyboardInterrupt
+        return real(fd, data, offset)
+
+    monkeypatch.setattr(_guarded.os, "pwrite", failing)
+    frames = [km.Model(rng.uniform(0, 10, (20_000, 3)), "Fe", cell=np.eye(3) * 10) for _ in range(3)]
+    expected = OSError if error == "ENOSPC" else KeyboardInterrupt
+    with pytest.raises(expected) as err:
+        write_h5md(tmp_path / "out.h5md", frames)
+    if error == "ENOSPC":
+        assert err.value.errno == errno.ENOSPC and "nothing was left behind" in str(err.value)
+    assert list(tmp_path.iterdir()) == []
+    monkeypatch.undo()
+    import gc
+
+    gc.collect()  # the HDF5 objects of the failed file are freed without harm
+    write_h5md(tmp_path / "again.h5md", frames)  # and the library still works
+    np.testing.assert_array_equal(open_model(tmp_path / "again.h5md", frame=2).read().positions, frames[2].positions)

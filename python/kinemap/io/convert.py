@@ -136,6 +136,11 @@ def convert(source_or_path, output, *, frames=None, species_map=None, format: st
     from . import open_model
 
     if isinstance(source_or_path, FileSource):
+        given = {k for k, v in dict(species_map=species_map, format=format, species=species, cell=cell,
+                                     supercell=supercell, **options).items() if v is not None}
+        if given or allow_external:
+            raise InvalidInputError(f"options {sorted(given) or ['allow_external']} apply when the input is a file "
+                                    "name; give them to kinemap.open_model for a source")
         input_path = source_or_path.path
     else:
         input_path = Path(file_name(source_or_path, "input"))
