@@ -133,6 +133,9 @@ def check_u_aniso(u: np.ndarray, offset: int, where: str) -> None:
     if bad.any():
         j = int(np.flatnonzero(bad)[0])
         raise ModelFileError(f"{where}: u_aniso of atom {offset + j} has non-finite entries {u[j].tolist()}")
+    if np.abs(flat).max() > 1e6:
+        j = int(np.flatnonzero(np.abs(flat).max(axis=1) > 1e6)[0])
+        raise ModelFileError(f"{where}: u_aniso of atom {offset + j} has entries beyond 1e6 Å²: {u[j].tolist()}")
     scale = np.maximum(np.abs(flat).max(axis=1), 1e-300)
     asym = np.abs(u - u.transpose(0, 2, 1)).max(axis=(1, 2)) / scale
     if (asym > 1e-9).any():

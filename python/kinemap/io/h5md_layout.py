@@ -255,7 +255,9 @@ class H5MDIndex:
                 triclinic = len(el.shape) == 3
             else:
                 raw = read_small(f[el.value_path], where, limit=16).astype(np.float64)
-                self.fixed_cell = self._cell(raw * scale, self.edges_where)
+                with np.errstate(over="ignore", invalid="ignore"):
+                    raw = raw * scale
+                self.fixed_cell = self._cell(raw, self.edges_where)
                 self.edges = el
                 triclinic = raw.ndim == 2
         elif "edges" in box.attrs:
@@ -263,7 +265,9 @@ class H5MDIndex:
             shape = raw.shape
             raw = attr_numbers(raw, f"{where}: {bpath} attribute 'edges'").reshape(shape)
             self.edges_where = f"{where}: {bpath} attribute 'edges'"
-            self.fixed_cell = self._cell(raw * self.scale, self.edges_where)
+            with np.errstate(over="ignore", invalid="ignore"):
+                raw = raw * self.scale
+            self.fixed_cell = self._cell(raw, self.edges_where)
             self.edges = "attribute"
             triclinic = raw.ndim == 2
         else:
@@ -294,7 +298,9 @@ class H5MDIndex:
                 raw = np.asarray(f[el.value_path][i], dtype=np.float64)
             except LAYOUT_ERRORS as exc:
                 raise ModelFileError(f"{self.edges_where}: cannot read the edges of frame {frame}: {exc}") from None
-        return self._cell(raw * self.edges_scale, f"{self.edges_where} (frame {frame})")
+        with np.errstate(over="ignore", invalid="ignore"):
+            raw = raw * self.edges_scale
+        return self._cell(raw, f"{self.edges_where} (frame {frame})")
 
     def _read_species(self, f, g, gpath, where, species_map):
         h5py = h5py_module()

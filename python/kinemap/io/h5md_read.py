@@ -135,7 +135,8 @@ class H5MDSource(FileSource):
         ix = self._ix
         pos_el = ix.position
         where = str(self.path)
-        with self._open() as f:
+        # Overflow of huge finite values to inf is caught by the checks after each step.
+        with self._open() as f, np.errstate(over="ignore", invalid="ignore"):
             ds = f[pos_el.value_path]
             for start in range(0, self.n_atoms, chunk_atoms):
                 stop = min(self.n_atoms, start + chunk_atoms)

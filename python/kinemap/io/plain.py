@@ -109,7 +109,9 @@ class _PlainIndex:
             self.cell_scale = length_scale(cds.attrs.get("unit"), f"{where}: /{cp} attribute 'unit'")
             if cds.shape == (3, 3):
                 self.cell_framed = False
-                self.fixed_cell = cell_from_edges(read_small(cds, where).astype(np.float64) * self.cell_scale, f"{where}: /{cp}")
+                with np.errstate(over="ignore", invalid="ignore"):
+                    raw = read_small(cds, where).astype(np.float64) * self.cell_scale
+                self.fixed_cell = cell_from_edges(raw, f"{where}: /{cp}")
             elif cds.ndim == 3 and cds.shape[1:] == (3, 3):
                 if cds.shape[0] != self.n_frames:
                     raise ModelFileError(f"{where}: /{cp} has {cds.shape[0]} frames but /{pp} has {self.n_frames} "
@@ -183,7 +185,9 @@ class _PlainIndex:
                 raw = np.asarray(f[cp][frame], dtype=np.float64)
             except LAYOUT_ERRORS as exc:
                 raise ModelFileError(f"{self.where}: cannot read /{cp} of frame {frame}: {exc}") from None
-        return cell_from_edges(raw * self.cell_scale, f"{self.where}: /{cp} (frame {frame})")
+        with np.errstate(over="ignore", invalid="ignore"):
+            raw = raw * self.cell_scale
+        return cell_from_edges(raw, f"{self.where}: /{cp} (frame {frame})")
 
 
 class PlainSource(FileSource):
@@ -239,7 +243,8 @@ class PlainSource(FileSource):
         chunk_atoms = check_chunk_atoms(chunk_atoms)
         ix = self._ix
         pp = ix.paths["positions"]
-        with open_h5(self.path) as f:
+        # Overflow of huge finite values to inf is caught by the checks after each step.
+        with open_h5(self.path) as f, np.errstate(over="ignore", invalid="ignore"):
             for start in range(0, self.n_atoms, chunk_atoms):
                 stop = min(self.n_atoms, start + chunk_atoms)
                 p = self._read(f, pp, ix.framed, start, stop, (slice(None),)).astype(np.float64)

@@ -428,7 +428,8 @@ class TextSource(FileSource):
             p = self._numbers(tok, fr.pos_cols, line, "coordinates")
             check_chunk(p, done, where, None)
             if fr.scaled:
-                p = p @ fr.cell + fr.origin
+                with np.errstate(over="ignore", invalid="ignore"):  # overflow to inf is caught next
+                    p = p @ fr.cell + fr.origin
                 check_chunk(p, done, where, None)
             idx, labels = self._chunk_labels(done, done + len(tok), None, lambda: self._species(tok, done))
             occ = b = ids = None
