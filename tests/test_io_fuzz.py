@@ -188,10 +188,10 @@ def mutate_hdf5(path, rng) -> str:
             return f"attribute {name}@{key} = {val!r}"
         if kind == 1 and isinstance(obj, h5py.Dataset):  # another dtype, same shape
             dt = DTYPES[rng.integers(len(DTYPES))]
-            data = np.zeros(obj.shape, dtype=dt) if obj.shape else np.zeros((), dtype=dt)
-            attrs = dict(obj.attrs)
+            shape, attrs = obj.shape, dict(obj.attrs)
             del f[name]
-            ds = f.create_dataset(name, data=data)
+            chunks = tuple(max(1, min(n, 4)) for n in shape) if shape and np.prod(shape, dtype=float) > 1e5 else None
+            ds = f.create_dataset(name, shape=shape, dtype=dt, chunks=chunks)  # unwritten: fill values
             for k, v in attrs.items():
                 ds.attrs[k] = v
             return f"dtype of {name} -> {dt}"

@@ -316,10 +316,11 @@ def test_species_dataset_elsewhere_refused(tmp_path, secret):
     path = tmp_path / "p.h5"
     with h5py.File(path, "w") as f:
         f["positions"] = np.zeros((3, 3))
-        f["labels"] = h5py.ExternalLink(str(secret), "/labels")
-    with pytest.raises(ModelFileError, match=r"/labels is an external link"):
-        open_model(path, species="/labels")
-    assert open_model(path, species="/labels", allow_external=True).species_labels() == ["Xx"]
+        f["kinds"] = h5py.ExternalLink(str(secret), "/labels")
+    with pytest.raises(ModelFileError, match=r"/kinds is an external link to '/labels'"):
+        open_model(path, species="/kinds")
+    src = open_model(path, species="/kinds", allow_external=True)
+    assert src.species_labels() == ["Xx"] and list(src.read().species) == ["Xx"] * 3
 
 
 def test_listing_in_error_messages_does_not_open_other_files(tmp_path, secret):

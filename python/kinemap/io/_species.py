@@ -164,11 +164,15 @@ class LabelColumn:
         Labels of integer codes (overrides an enumeration's names).
     names : dict, optional
         Labels of integer codes found in the file (used when no species map is given).
+    path : str, optional
+        The path by which the reader found the dataset in the model file (default: its
+        name; differs when it was reached through a link).
     """
 
-    def __init__(self, ds, framed: bool, where: str, species_map=None, names: dict | None = None):
+    def __init__(self, ds, framed: bool, where: str, species_map=None, names: dict | None = None,
+                 path: str | None = None):
         h5py = h5py_module()
-        self.path = ds.name
+        self.path = path or ds.name
         self.framed = bool(framed)
         self.where = where
         self.shape = tuple(ds.shape)
@@ -450,14 +454,16 @@ def _dataset_supply(obj, text, where, path, n_frames, species_map) -> SpeciesSup
             raise ModelFileError(f"{where} is a group without a 'value' dataset, so it holds no labels")
         ds = obj["value"]
         framed = True
+        ds_path = text.rstrip("/") + "/value"
     else:
         ds = obj
         framed = ds.ndim == 2
+        ds_path = text
     if ds.ndim != (2 if framed else 1):
         raise ModelFileError(f"{where} must have shape [N] or [frame][N] to give one label per atom, got {list(ds.shape)}")
     if framed and ds.shape[0] != n_frames:
         raise ModelFileError(f"{where} has {ds.shape[0]} frames but the model has {n_frames}")
-    column = LabelColumn(ds, framed, where, species_map=species_map, names=names)
+    column = LabelColumn(ds, framed, where, species_map=species_map, names=names, path=ds_path)
     return SpeciesSupply("dataset", f"dataset {text}", column=column, path=Path(path), n_frames=n_frames)
 
 

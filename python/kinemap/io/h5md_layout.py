@@ -142,7 +142,7 @@ class H5MDIndex:
             if cr is not None:
                 self.creator = attr_str(cr.attrs.get("name", ""))[:200] or None
         self.other = [k for k in _OTHER_GROUPS if k in f]
-        self.elements = sorted(g.keys())
+        self.elements = sorted(k for _, k in zip(range(64), g.keys()))  # what else the group holds (first 64)
         pobj = self._get(f, f"{gpath}/position")
         if pobj is None:
             raise ModelFileError(f"{where}: dataset '{gpath}/position' is missing; {gpath} has: "
@@ -318,7 +318,7 @@ class H5MDIndex:
         if names is None and isinstance(obj, h5py.Group):
             names = file_names_attribute(ds, f"{where}: {el.value_path}")
         self.species_column = LabelColumn(ds, el.time_dependent, f"{where}: {el.value_path}", species_map=species_map,
-                                          names=names)
+                                          names=names, path=el.value_path)
 
     def missing_species(self) -> str | None:
         if self.species_column is None:

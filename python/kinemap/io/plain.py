@@ -136,7 +136,8 @@ class _PlainIndex:
                     raise ModelFileError(f"{where}: /{self.paths['species_names']} must be a dataset")
                 labels = [attr_str(x) for x in read_small(nds, where).reshape(-1)]
                 names = dict(enumerate(labels))
-            self.species_column = LabelColumn(sds, framed, f"{where}: /{sp}", species_map=species_map, names=names)
+            self.species_column = LabelColumn(sds, framed, f"{where}: /{sp}", species_map=species_map, names=names,
+                                              path=sp)
             if self.species_column.kind == "integer" and self.species_column.table is None:
                 self.species_missing = (f"{where}: /{sp} holds integer codes but there is no "
                                         f"/{self.paths['species_names']}; add it or give a species map such as "
