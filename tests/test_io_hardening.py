@@ -474,3 +474,16 @@ def test_write_failures_inside_hdf5_leave_nothing(tmp_path, rng, monkeypatch, fa
     gc.collect()  # the HDF5 objects of the failed file are freed without harm
     write_h5md(tmp_path / "again.h5md", frames)  # and the library still works
     np.testing.assert_array_equal(open_model(tmp_path / "again.h5md", frame=2).read().positions, frames[2].positions)
+
+
+def test_failed_rename_leaves_nothing(tmp_path, rng, monkeypatch):
+    """The last step, the rename into place, fails (e.g. the folder became read-only)."""
+    from kinemap._shared import output
+
+    def refuse(src, dst):
+        raise PermissionError(13, "Permission denied", str(dst))
+
+    monkeypatch.setattr(output.os, "replace", refuse)
+    with pytest.raises(PermissionError):
+        write_h5md(tmp_path / "x.h5md", km.Model(rng.uniform(0, 1, (5, 3)), "Fe"))
+    assert list(tmp_path.iterdir()) == []

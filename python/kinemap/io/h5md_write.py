@@ -290,7 +290,11 @@ class H5MDWriter:
             if held.received:
                 self._abort()
             else:
-                self._out.commit()
+                try:
+                    self._out.commit()
+                except BaseException:  # the rename failed: keep nothing
+                    self._abort()
+                    raise
                 self._closed = True
         held.deliver()
         return self.final
@@ -313,7 +317,8 @@ class H5MDWriter:
             self._sink.close()
 
     def _abort(self) -> None:
-        """Close what is open and remove the temporary file (never raises)."""
+        """Close what is open and remove the temporary file. Raises only a Ctrl-C or SIGTERM
+        held while it ran."""
         with _HeldSignals() as held:
             try:
                 self._close_h5()
