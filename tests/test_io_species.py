@@ -283,3 +283,20 @@ def test_mdanalysis_h5md_trajectory_reads_with_species(tmp_path, rng, unit):
         assert d["step"] == 100 * i and d["time"] == pytest.approx(0.5 * i)
     out = convert(path, tmp_path / "km.h5md", species=labels)  # and on to kinemap's own layout
     np.testing.assert_allclose(open_model(out, frame=2).read().positions, positions[2], rtol=2e-7, atol=2e-6)
+
+
+def test_describe_reports_problems_instead_of_failing(tmp_path, rng):
+    pos = rng.uniform(0, 5, (1, 50, 3))
+    codes = np.zeros(50, int)
+    codes[37] = 5
+    path = h5md_without_species(tmp_path / "bad.h5md", pos, extra={"species": codes})
+    src = open_model(path, species_map="0=Fe")
+    d = src.describe()
+    assert d["species"] is None and "atom 37 (frame 0) has species code 5" in d["problems"][0]
+    with pytest.raises(ModelFileError, match="atom 37 has species code 5"):
+        src.read()
+    lammps = tmp_path / "types.lammpstrj"
+    lammps.write_text("ITEM: TIMESTEP\n0\nITEM: NUMBER OF ATOMS\n1\nITEM: BOX BOUNDS pp pp pp\n0 1\n0 1\n0 1\n"
+                      "ITEM: ATOMS id type x y z\n1 1 0 0 0\n")
+    d = open_model(lammps).describe()
+    assert d["species"] is None and "--species-map" in d["missing"][0] and "--species" in d["missing"][0]
