@@ -293,7 +293,7 @@ def test_describe_reports_problems_instead_of_failing(tmp_path, rng):
     src = open_model(path, species_map="0=Fe")
     d = src.describe()
     assert d["species"] is None and "atom 37 (frame 0) has species code 5" in d["problems"][0]
-    with pytest.raises(ModelFileError, match="atom 37 has species code 5"):
+    with pytest.raises(ModelFileError, match=r"atom 37 \(frame 0\) has species code 5"):
         src.read()
     lammps = tmp_path / "types.lammpstrj"
     lammps.write_text("ITEM: TIMESTEP\n0\nITEM: NUMBER OF ATOMS\n1\nITEM: BOX BOUNDS pp pp pp\n0 1\n0 1\n0 1\n"
