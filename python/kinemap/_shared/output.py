@@ -108,7 +108,7 @@ def check_output(path, *, overwrite: bool = False, inputs=(), what: str = "outpu
     return p
 
 
-class _HeldSignals:
+class HeldSignals:
     """Hold SIGINT/SIGTERM while a file is written (main thread only)."""
 
     def __init__(self):
@@ -201,7 +201,7 @@ def atomic_write(path, *, overwrite: bool = False, inputs=(), what: str = "outpu
     """``with atomic_write(path) as tmp: write(tmp)``: the file appears under `path` when the
     block completes; on any error or signal nothing new is left (see the module notes)."""
     af = AtomicFile(path, overwrite=overwrite, inputs=inputs, what=what)
-    with _HeldSignals() as held:
+    with HeldSignals() as held:
         try:
             yield af.tmp
         except BaseException:
@@ -214,4 +214,4 @@ def atomic_write(path, *, overwrite: bool = False, inputs=(), what: str = "outpu
     held.deliver()
 
 
-__all__ = ["AtomicFile", "atomic_write", "check_output", "remove_leftovers"]
+__all__ = ["AtomicFile", "atomic_write", "check_output", "remove_leftovers", "HeldSignals"]

@@ -16,12 +16,14 @@ from pathlib import Path
 
 import numpy as np
 
+from .._shared.validate import file_name
 from ..errors import KinemapError, ModelFileError
 from ..model import Model
 from ._base import MemorySource
 
 
-def open_with_ase(path, frame=None, ase_format: str | None = None) -> MemorySource:
+def open_with_ase(path, frame=None, ase_format: str | None = None, *, species=None, cell=None,
+                  supercell=None) -> MemorySource:
     """Read a structure file with ASE into an in-memory atom source.
 
     Parameters
@@ -32,6 +34,8 @@ def open_with_ase(path, frame=None, ase_format: str | None = None) -> MemorySour
         Frame of a multi-frame file (default: the first).
     ase_format : str, optional
         ASE's format name when the extension does not tell it (e.g. "vasp", "cif").
+    species, cell, supercell :
+        As for :func:`kinemap.open_model`.
 
     Returns
     -------
@@ -44,7 +48,7 @@ def open_with_ase(path, frame=None, ase_format: str | None = None) -> MemorySour
     FileNotFoundError, ModelFileError
         Missing file, or one ASE cannot read (with ASE's reason).
     """
-    p = Path(path)
+    p = Path(file_name(path, "path"))
     if not p.exists():
         raise FileNotFoundError(f"no such file: {str(p)!r}")
     try:
@@ -66,13 +70,17 @@ def open_with_ase(path, frame=None, ase_format: str | None = None) -> MemorySour
         if "occupancy" in atoms.arrays:
             occ = np.asarray(atoms.arrays["occupancy"], dtype=np.float64)
         try:
+            periodic = has_cell and bool(np.any(atoms.pbc))
             models.append(Model(atoms.get_positions(), list(atoms.get_chemical_symbols()), occupancy=occ,
-                                cell=cell if has_cell else None))
+                                box=cell if periodic else None, cell=cell if has_cell else None))
         except ValueError as exc:
             raise ModelFileError(f"{str(p)!r}, frame {i}: {exc}") from None
     import ase
 
-    return MemorySource(p, models, "ase", frame, info={"reader": f"ase {ase.__version__}"})
+    from ._options import configure
+
+    src = MemorySource(p, models, "ase", frame, info={"reader": f"ase {ase.__version__}"})
+    return configure(src, species=species, cell=cell, supercell=supercell)
 
 
 __all__ = ["open_with_ase"]

@@ -32,19 +32,19 @@ from pathlib import Path
 
 import numpy as np
 
+from .._shared.validate import file_name
 from ..errors import ModelFileError
 from ._base import (
     DEFAULT_READ_ATOMS,
-    FileSource,
     ChunkModel,
-    SpeciesTable,
+    FileSource,
     cell_from_edges,
     check_chunk,
     check_chunk_atoms,
     check_values,
     normalise_frame,
-    parse_species_map,
 )
+from ._species import SPECIES_HINT, SpeciesTable, parse_species_map
 
 # Lines parsed per block when a chunk is read.
 _BLOCK_LINES = 1 << 18
@@ -88,7 +88,7 @@ class _TextIndex:
     fmt = "?"
 
     def __init__(self, path, species_map):
-        self.path = Path(path)
+        self.path = Path(file_name(path, "path"))
         if not self.path.exists():
             raise FileNotFoundError(f"no such file: {str(self.path)!r}")
         if self.path.is_dir():
@@ -242,19 +242,23 @@ class _DumpIndex(_TextIndex):
                     n = int(v.split()[0])
                 except (ValueError, IndexError):
                     raise self._err(line, f"NUMBER OF ATOMS value {v[:40]!r} is not a whole number") from None
+                if n < 0:
+                    raise self._err(line, f"NUMBER OF ATOMS is {n}; an atom count cannot be negative")
             elif item.startswith("BOX BOUNDS"):
                 words = item.split()[2:]
                 tilt = words[:3] == ["xy", "xz", "yz"]
                 flags = words[3:] if tilt else words
                 pbc = ["periodic" if w == "pp" else "none" for w in flags] if len(flags) == 3 else None
                 rows = []
+                lines = []
                 for _ in range(3):
                     v = next_line()
                     try:
                         rows.append([float(x) for x in v.split()])
                     except ValueError:
                         raise self._err(line, f"BOX BOUNDS line {v[:60]!r} must hold numbers") from None
-                cell, origin = self._box(rows, tilt, line)
+                    lines.append(line)
+                cell, origin = self._box(rows, tilt, lines)
             elif item.startswith("ATOMS"):
                 if n is None:
                     raise self._err(line, "ITEM: ATOMS before ITEM: NUMBER OF ATOMS")
@@ -269,9 +273,13 @@ class _DumpIndex(_TextIndex):
             else:
                 continue  # unknown items (e.g. UNITS, TIME) are skipped
 
-    def _box(self, rows, tilt, line):
-        if any(len(r) < (3 if tilt else 2) for r in rows):
-            raise self._err(line, "BOX BOUNDS needs 3 lines of 'lo hi' (and a tilt for triclinic boxes)")
+    def _box(self, rows, tilt, lines):
+        need = 3 if tilt else 2
+        for r, ln in zip(rows, lines):
+            if len(r) < need:
+                raise self._err(ln, "BOX BOUNDS needs 3 lines of 'lo hi' (and a tilt for triclinic boxes)")
+            if not all(np.isfinite(r[:need])):
+                raise self._err(ln, f"BOX BOUNDS line has non-finite values {r[:need]}")
         if tilt:
             (xlb, xhb, xy), (ylb, yhb, xz), (zlo, zhi, yz) = [r[:3] for r in rows]
             # LAMMPS writes the bounding box of the tilted cell; recover lo/hi.
@@ -279,13 +287,18 @@ class _DumpIndex(_TextIndex):
             xhi = xhb - max(0.0, xy, xz, xy + xz)
             ylo = ylb - min(0.0, yz)
             yhi = yhb - max(0.0, yz)
-            cell = np.array([[xhi - xlo, 0, 0], [xy, yhi - ylo, 0], [xz, yz, zhi - zlo]], dtype=np.float64)
-            origin = np.array([xlo, ylo, zlo])
         else:
             (xlo, xhi), (ylo, yhi), (zlo, zhi) = [r[:2] for r in rows]
+        for axis, lo, hi, ln in (("x", xlo, xhi, lines[0]), ("y", ylo, yhi, lines[1]), ("z", zlo, zhi, lines[2])):
+            if not hi > lo:
+                raise self._err(ln, f"BOX BOUNDS: {axis}hi = {hi!r} is not above {axis}lo = {lo!r}"
+                                + (" (after removing the tilts from the bounding box)" if tilt else ""))
+        if tilt:
+            cell = np.array([[xhi - xlo, 0, 0], [xy, yhi - ylo, 0], [xz, yz, zhi - zlo]], dtype=np.float64)
+        else:
             cell = np.diag([xhi - xlo, yhi - ylo, zhi - zlo]).astype(np.float64)
-            origin = np.array([xlo, ylo, zlo])
-        return cell_from_edges(cell, f"{self.path}, line {line}: BOX BOUNDS"), origin
+        origin = np.array([xlo, ylo, zlo])
+        return cell_from_edges(cell, f"{self.path}, line {lines[-1]}: BOX BOUNDS"), origin
 
     def _layout(self, names, line) -> _Frame:
         pos = {nm: i for i, nm in enumerate(names)}
@@ -320,18 +333,19 @@ class TextSource(FileSource):
         self._fr = index.frames[self.frame]
         self.n_atoms = self._fr.n_atoms
         self.box = self._fr.cell
-        self._labels = None
+        self._label_cache = None
 
-    def at_frame(self, frame: int) -> "TextSource":
+    def _at_frame(self, frame: int) -> "TextSource":
         return TextSource(self._ix, frame)
 
-    def _blocks(self, chunk_atoms):
+    def _blocks(self, chunk_atoms, stop: int | None = None):
         fr = self._fr
+        end = fr.n_atoms if stop is None else min(stop, fr.n_atoms)
         with open(self.path, "rb") as fh:
             fh.seek(fr.offset)
             done = 0
-            while done < fr.n_atoms:
-                n = min(chunk_atoms, fr.n_atoms - done)
+            while done < end:
+                n = min(chunk_atoms, end - done)
                 lines = [fh.readline() for _ in range(n)]
                 if not lines[-1]:
                     raise ModelFileError(f"{self.path}: the file changed or ends early in frame {self.frame} "
@@ -361,13 +375,24 @@ class TextSource(FileSource):
                                          "are not numbers") from None
             raise
 
+    def _missing_species(self) -> str | None:
+        if self._fr.species_codes and self._ix.table is None:
+            return (f"{self.path}: species are integer types without names; give a species map such as "
+                    "{1: 'Fe', 2: 'Ni'} (command line: --species-map 1=Fe,2=Ni), or " + SPECIES_HINT)
+        return None
+
+    def _declared_labels(self) -> list[str] | None:
+        if self._fr.species_codes and self._ix.table is not None:
+            return list(self._ix.table.distinct)
+        return None
+
     def _species(self, tok, done):
         fr = self._fr
         col = tok[:, fr.species_col]
         if fr.species_codes:
-            if self._ix.table is None:
-                raise ModelFileError(f"{self.path}: species are integer types (e.g. {col[0].decode()}) without names; give "
-                                     "a species map such as {1: 'Fe', 2: 'Ni'} (command line: --species-map 1=Fe,2=Ni)")
+            miss = self._missing_species()
+            if miss:
+                raise ModelFileError(miss)
             try:
                 codes = col.astype(np.int64)
             except ValueError:
@@ -376,14 +401,15 @@ class TextSource(FileSource):
         uniq, inv = np.unique(col, return_inverse=True)
         return inv.reshape(-1), [u.decode("utf-8", "replace") for u in uniq]
 
-    def species_labels(self) -> list[str]:
-        if self._labels is None:
-            present: set[str] = set()
-            for done, tok in self._blocks(_BLOCK_LINES):
-                idx, labels = self._species(tok, done)
-                present.update(lab for lab, c in zip(labels, np.bincount(idx, minlength=len(labels))) if c)
-            self._labels = sorted(present)
-        return list(self._labels)
+    def _scan_labels(self) -> list[str]:
+        return self._labels_in_first(self.n_atoms)
+
+    def _labels_in_first(self, n: int) -> list[str]:
+        present: set[str] = set()
+        for done, tok in self._blocks(min(_BLOCK_LINES, max(n, 1)), stop=n):
+            idx, labels = self._species(tok, done)
+            present.update(lab for lab, c in zip(labels, np.bincount(idx, minlength=len(labels))) if c)
+        return sorted(present)
 
     def iter_chunks(self, chunk_atoms: int = DEFAULT_READ_ATOMS):
         chunk_atoms = check_chunk_atoms(chunk_atoms)
@@ -400,10 +426,12 @@ class TextSource(FileSource):
         for done, tok in self._blocks(min(chunk_atoms, _BLOCK_LINES) if chunk_atoms > _BLOCK_LINES else chunk_atoms):
             line = fr.line + done
             p = self._numbers(tok, fr.pos_cols, line, "coordinates")
-            if fr.scaled:
-                p = p @ fr.cell + fr.origin
             check_chunk(p, done, where, None)
-            idx, labels = self._species(tok, done)
+            if fr.scaled:
+                with np.errstate(over="ignore", invalid="ignore"):  # overflow to inf is caught next
+                    p = p @ fr.cell + fr.origin
+                check_chunk(p, done, where, None)
+            idx, labels = self._chunk_labels(done, done + len(tok), None, lambda: self._species(tok, done))
             occ = b = ids = None
             if fr.occ_col is not None:
                 occ = self._numbers(tok, [fr.occ_col], line, "occupancy")[:, 0]
@@ -428,27 +456,38 @@ class TextSource(FileSource):
         return d
 
 
-def open_extxyz(path, frame=None, species_map=None) -> TextSource:
+def open_extxyz(path, frame=None, species_map=None, *, species=None, cell=None, supercell=None) -> TextSource:
     """Open one frame of an (extended) XYZ file as an atom source (see the module notes).
+
+    `species`, `cell` and `supercell` are as for :func:`kinemap.open_model`.
 
     Raises
     ------
     FileNotFoundError, ModelFileError
         Missing file; malformed header, truncated frame or bad numbers (naming the line).
     """
-    return TextSource(_XYZIndex(path, species_map), frame)
+    from ._options import configure
+
+    return configure(TextSource(_XYZIndex(path, species_map), frame), species=species, cell=cell,
+                     supercell=supercell, species_map=species_map)
 
 
-def open_lammps_dump(path, frame=None, species_map=None) -> TextSource:
+def open_lammps_dump(path, frame=None, species_map=None, *, species=None, cell=None, supercell=None) -> TextSource:
     """Open one frame of a LAMMPS dump file as an atom source (see the module notes).
+
+    `species`, `cell` and `supercell` are as for :func:`kinemap.open_model`.
 
     Raises
     ------
     FileNotFoundError, ModelFileError
-        Missing file; missing items or columns, truncated frame or bad numbers (naming the
-        line); integer types without a species map.
+        Missing file; missing items or columns, a negative atom count, box bounds with
+        hi <= lo, truncated frame or bad numbers (naming the line); integer types without a
+        species map are reported when atoms are read.
     """
-    return TextSource(_DumpIndex(path, species_map), frame)
+    from ._options import configure
+
+    return configure(TextSource(_DumpIndex(path, species_map), frame), species=species, cell=cell,
+                     supercell=supercell, species_map=species_map)
 
 
 __all__ = ["TextSource", "open_extxyz", "open_lammps_dump"]
