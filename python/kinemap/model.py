@@ -520,6 +520,20 @@ class AtomSourceBase:
     def iter_chunks(self, chunk_atoms: int) -> Iterator["Model"]:
         raise NotImplementedError
 
+    def iter_range(self, start: int, stop: int, chunk_atoms: int) -> Iterator["Model"]:
+        """The atoms ``start:stop`` as chunks of at most `chunk_atoms` (used by the tasks of a
+        cluster run). This default streams from the first atom and keeps what falls in the
+        range; readers that can seek (HDF5) read only the range."""
+        pos = 0
+        for chunk in self.iter_chunks(chunk_atoms):
+            n = chunk.n_atoms
+            lo, hi = max(start - pos, 0), min(stop - pos, n)
+            if lo < hi:
+                yield chunk if (lo, hi) == (0, n) else chunk.subset(slice(lo, hi))
+            pos += n
+            if pos >= stop:
+                return
+
     def _extra_description(self) -> dict:
         return {}
 

@@ -55,19 +55,11 @@ def read_chunk(source, index: int, chunk_atoms: int):
     if isinstance(source, Model):
         return source.subset(slice(start, start + chunk_atoms))
     ranged = getattr(source, "iter_range", None)
-    if ranged is not None:
-        chunks = list(ranged(start, start + chunk_atoms, chunk_atoms))
-        return chunks[0] if len(chunks) == 1 else _join(chunks)
-    for k, chunk in enumerate(source.iter_chunks(chunk_atoms)):
-        if k == index:
-            return chunk
+    chunks = ranged(start, start + chunk_atoms, chunk_atoms) if ranged is not None else \
+        (c for k, c in enumerate(source.iter_chunks(chunk_atoms)) if k == index)
+    for chunk in chunks:
+        return chunk
     raise InvalidInputError(f"the source has no atom chunk {index} of {chunk_atoms} atoms")
-
-
-def _join(chunks):
-    from ..model import concatenate
-
-    return concatenate(chunks)
 
 
 def chunk_task(source, index: int, chunk_atoms: int, grid: QGrid, probe, u0: int, u1: int,

@@ -121,8 +121,13 @@ class H5MDSource(FileSource):
         fn = (lambda: ds[self.frame, start:stop]) if el.time_dependent else (lambda: ds[start:stop])
         return np.asarray(self._read(el, fn, start, stop))
 
-    def iter_chunks(self, chunk_atoms: int = DEFAULT_READ_ATOMS):
-        """Yield consecutive chunks of at most `chunk_atoms` atoms (hyperslab reads).
+    def iter_range(self, start: int, stop: int, chunk_atoms: int):
+        """The atoms ``start:stop`` as chunks, reading only those (hyperslabs)."""
+        return self.iter_chunks(chunk_atoms, start=start, stop=stop)
+
+    def iter_chunks(self, chunk_atoms: int = DEFAULT_READ_ATOMS, *, start: int = 0, stop: int | None = None):
+        """Yield consecutive chunks of at most `chunk_atoms` atoms (hyperslab reads), of the
+        atoms ``start:stop`` (default all).
 
         Raises
         ------
@@ -138,8 +143,9 @@ class H5MDSource(FileSource):
         # Overflow of huge finite values to inf is caught by the checks after each step.
         with self._open() as f, np.errstate(over="ignore", invalid="ignore"):
             ds = f[pos_el.value_path]
-            for start in range(0, self.n_atoms, chunk_atoms):
-                stop = min(self.n_atoms, start + chunk_atoms)
+            first, last = max(0, int(start)), self.n_atoms if stop is None else min(self.n_atoms, int(stop))
+            for start in range(first, last, chunk_atoms):
+                stop = min(last, start + chunk_atoms)
                 if pos_el.time_dependent:
                     raw = self._read(pos_el, lambda: ds[self.frame, start:stop, :], start, stop)
                 else:

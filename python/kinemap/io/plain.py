@@ -239,15 +239,21 @@ class PlainSource(FileSource):
             idx, labels = self._ix.species_column.chunk(f, self._species_frame(), 0, min(n, self.n_atoms))
         return [lab for lab, c in zip(labels, np.bincount(idx, minlength=len(labels))) if c]
 
-    def iter_chunks(self, chunk_atoms: int = DEFAULT_READ_ATOMS):
-        """Yield consecutive chunks of at most `chunk_atoms` atoms (hyperslab reads)."""
+    def iter_range(self, start: int, stop: int, chunk_atoms: int):
+        """The atoms ``start:stop`` as chunks, reading only those (hyperslabs)."""
+        return self.iter_chunks(chunk_atoms, start=start, stop=stop)
+
+    def iter_chunks(self, chunk_atoms: int = DEFAULT_READ_ATOMS, *, start: int = 0, stop: int | None = None):
+        """Yield consecutive chunks of at most `chunk_atoms` atoms (hyperslab reads), of the
+        atoms ``start:stop`` (default all)."""
         chunk_atoms = check_chunk_atoms(chunk_atoms)
         ix = self._ix
         pp = ix.paths["positions"]
         # Overflow of huge finite values to inf is caught by the checks after each step.
         with open_h5(self.path) as f, np.errstate(over="ignore", invalid="ignore"):
-            for start in range(0, self.n_atoms, chunk_atoms):
-                stop = min(self.n_atoms, start + chunk_atoms)
+            first, last = max(0, int(start)), self.n_atoms if stop is None else min(self.n_atoms, int(stop))
+            for start in range(first, last, chunk_atoms):
+                stop = min(last, start + chunk_atoms)
                 p = self._read(f, pp, ix.framed, start, stop, (slice(None),)).astype(np.float64)
                 check_chunk(p, start, f"{self.path}: /{pp}", self.frame)
                 if ix.fractional:
