@@ -50,7 +50,7 @@ const BLOCK: usize = 128;
 /// Average atoms per cell above which cells half a cut-off wide are used.
 const MIN_ATOMS_PER_CELL: usize = 16;
 /// Squared distances computed together before the in-range ones are binned.
-const D2_BUF: usize = 64;
+const D2_BUF: usize = 64; // one bit each in a u64 mask
 
 /// Index of the unordered group pair (g, h) among the `n_groups (n_groups + 1) / 2` pairs,
 /// row by row of the upper triangle: (0,0), (0,1) … (0,G−1), (1,1), (1,2) …
@@ -418,8 +418,6 @@ impl Ctx<'_> {
         count: &mut u128,
     ) {
         let mut d2 = [0.0f64; D2_BUF];
-        let mut hit_t = [0.0f64; D2_BUF];
-        let mut hit_j = [0usize; D2_BUF];
         for i in i0..i1 {
             let (xi, yi, zi, wi) = (a.x[i], a.y[i], a.z[i], a.w[i]);
             let gi = a.g[i] as usize;
@@ -439,32 +437,66 @@ impl Ctx<'_> {
                     let dz = (bz[l] - zi) + shift[2];
                     d2[l] = dx * dx + dy * dy + dz * dz;
                 }
-                // Branch-free compaction of the pairs within the cut-off (about one in six
-                // candidates of a 27-cell search), then the distances in units of dr.
-                let mut nh = 0;
+                // One bit per candidate within the cut-off (a vector compare), then only the
+                // set bits are visited: no branch per candidate.
+                let mut mask = 0u64;
                 for l in 0..n {
-                    hit_t[nh] = d2[l];
-                    hit_j[nh] = j0 + l;
-                    nh += (d2[l] <= self.cut2) as usize;
+                    mask |= ((d2[l] <= self.cut2) as u64) << l;
                 }
-                for t in hit_t[..nh].iter_mut() {
-                    *t = t.sqrt() * self.inv_dr;
-                }
-                for h in 0..nh {
-                    let (t, j) = (hit_t[h], hit_j[h]);
-                    let k = (t as usize).min(self.last);
-                    let frac = (t - k as f64).min(1.0);
-                    let wfix = (wi * b.w[j] * SCALE).round() as u64;
-                    let upper = (wfix as f64 * frac).round() as u64;
+                *count += mask.count_ones() as u128;
+                while mask != 0 {
+                    let l = mask.trailing_zeros() as usize;
+                    mask &= mask - 1;
+                    let j = j0 + l;
+                    // t ∈ [0, n_nodes − 1] (up to rounding): distances are bounded by the
+                    // cut-off, or by the bounding-box diagonal checked against the last node.
+                    let t = d2[l].sqrt() * self.inv_dr;
+                    let k = (t as i64).clamp(0, self.last as i64) as usize;
+                    let frac = (t - k as f64).clamp(0.0, 1.0);
+                    let wfix = round_to_u64(wi * b.w[j] * SCALE);
+                    let upper = round_to_u64(wfix as f64 * frac);
                     let base = row[b.g[j] as usize] + k;
                     acc[base] += (wfix - upper) as u128;
                     acc[base + 1] += upper as u128;
                 }
-                *count += nh as u128;
+                j0 += n;
+                    continue;
+                }
+                *count += mask.count_ones() as u128;
+                // Node and fixed-point split of every candidate, in vector code; t lies in
+                // [0, n_nodes − 1] (up to rounding) for the pairs kept, whose distances are
+                // bounded by the cut-off or by the bounding-box diagonal checked against the
+                // last node. Candidates beyond the cut-off give clamped values never used.
+                let bw = &b.w[j0..j0 + n];
+                for l in 0..n {
+                    let t = d2[l].sqrt() * self.inv_dr;
+                    let k = (t as i64).clamp(0, self.last as i64);
+                    let frac = (t - k as f64).clamp(0.0, 1.0);
+                    let wfix = round_to_u64(wi * bw[l] * SCALE);
+                    let upper = round_to_u64(wfix as f64 * frac);
+                    node[l] = k as u64;
+                    lower_w[l] = wfix - upper;
+                    upper_w[l] = upper;
+                }
+                while mask != 0 {
+                    let l = mask.trailing_zeros() as usize;
+                    mask &= mask - 1;
+                    let base = row[b.g[j0 + l] as usize] + node[l] as usize;
+                    acc[base] += lower_w[l] as u128;
+                    acc[base + 1] += upper_w[l] as u128;
+                }
                 j0 += n;
             }
         }
     }
+}
+
+/// Round `x` ∈ [0, 2⁵¹) to the nearest integer (ties to even), branch-free: adding 2⁵²
+/// leaves the integer in the low mantissa bits.
+#[inline(always)]
+fn round_to_u64(x: f64) -> u64 {
+    const MAGIC: f64 = 4_503_599_627_370_496.0; // 2^52
+    (x + MAGIC).to_bits() - MAGIC.to_bits()
 }
 
 #[cfg(test)]
