@@ -460,32 +460,6 @@ impl Ctx<'_> {
                     acc[base + 1] += upper as u128;
                 }
                 j0 += n;
-                    continue;
-                }
-                *count += mask.count_ones() as u128;
-                // Node and fixed-point split of every candidate, in vector code; t lies in
-                // [0, n_nodes − 1] (up to rounding) for the pairs kept, whose distances are
-                // bounded by the cut-off or by the bounding-box diagonal checked against the
-                // last node. Candidates beyond the cut-off give clamped values never used.
-                let bw = &b.w[j0..j0 + n];
-                for l in 0..n {
-                    let t = d2[l].sqrt() * self.inv_dr;
-                    let k = (t as i64).clamp(0, self.last as i64);
-                    let frac = (t - k as f64).clamp(0.0, 1.0);
-                    let wfix = round_to_u64(wi * bw[l] * SCALE);
-                    let upper = round_to_u64(wfix as f64 * frac);
-                    node[l] = k as u64;
-                    lower_w[l] = wfix - upper;
-                    upper_w[l] = upper;
-                }
-                while mask != 0 {
-                    let l = mask.trailing_zeros() as usize;
-                    mask &= mask - 1;
-                    let base = row[b.g[j0 + l] as usize] + node[l] as usize;
-                    acc[base] += lower_w[l] as u128;
-                    acc[base + 1] += upper_w[l] as u128;
-                }
-                j0 += n;
             }
         }
     }
