@@ -19,6 +19,7 @@ from .qgrid import QGrid
 from .scatter import KinematicApproximationWarning, scatter
 from .io import open_model, write_h5md
 from .frames import FrameAverages, average_frames
+from .powder import PairDistribution, PowderCautionWarning, PowderPattern, pair_distribution, powder
 
 __all__ = [
     "__version__",
@@ -36,4 +37,9 @@ __all__ = [
     "write_h5md",
     "average_frames",
     "FrameAverages",
+    "powder",
+    "pair_distribution",
+    "PowderPattern",
+    "PairDistribution",
+    "PowderCautionWarning",
 ]
