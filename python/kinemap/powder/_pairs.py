@@ -139,7 +139,6 @@ class FrameScan:
 def scan_frame(source, box, chunk_atoms: int) -> FrameScan:
     """First pass: atoms, occupancy sums per (label, B), bounding boxes of every chunk."""
     n = 0
-    occ_sum = 0.0
     lo = np.full(3, np.inf)
     hi = np.full(3, -np.inf)
     bounds = []
@@ -152,13 +151,12 @@ def scan_frame(source, box, chunk_atoms: int) -> FrameScan:
             continue
         labels, b, index, an = _chunk_groups(chunk)
         aniso |= an
-        sums = np.bincount(index, weights=chunk.occupancy, minlength=len(labels))
+        sums = _fixed_sums(index, chunk.occupancy, len(labels))
         for lab, bb, s in zip(labels, b, sums):
             key = (str(lab), float(bb))
-            group_occ[key] = group_occ.get(key, 0.0) + float(s)
+            group_occ[key] = group_occ.get(key, 0) + s
         p = chunk.positions
         n += chunk.n_atoms
-        occ_sum += float(chunk.occupancy.sum())
         clo, chi = p.min(axis=0), p.max(axis=0)
         lo, hi = np.minimum(lo, clo), np.maximum(hi, chi)
         if inv is None:
@@ -167,9 +165,30 @@ def scan_frame(source, box, chunk_atoms: int) -> FrameScan:
             f = p @ inv
             f -= np.floor(f)
             bounds.append(_circular_intervals(f))
+    # occupancy sums as exact integers (units of 2⁻³²): independent of the chunking
+    occ_sum = sum(group_occ.values()) / OCC_SCALE
+    group_occ = {k: v / OCC_SCALE for k, v in group_occ.items()}
     scan = FrameScan(n, occ_sum, box, lo, hi, bounds, group_occ)
     scan.aniso = aniso  # type: ignore[attr-defined]
     return scan
+
+
+OCC_SCALE = float(1 << 32)
+
+
+def _fixed_sums(index: np.ndarray, occupancy: np.ndarray, n_groups: int) -> list[int]:
+    """Σ occupancy per group as exact integers in units of 2⁻³² (order-independent sums)."""
+    ints = np.rint(np.asarray(occupancy, dtype=np.float64) * OCC_SCALE).astype(np.int64)
+    order = np.argsort(index, kind="stable")
+    idx = np.asarray(index)[order]
+    starts = np.searchsorted(idx, np.arange(n_groups))
+    ends = np.searchsorted(idx, np.arange(n_groups), side="right")
+    sorted_ints = ints[order]
+    out = []
+    for a, b in zip(starts, ends):
+        # int64 holds 2³¹ atoms of occupancy 1; Python ints add the chunks exactly
+        out.append(int(sorted_ints[a:b].sum(dtype=np.int64)) if b > a else 0)
+    return out
 
 
 def _circular_intervals(frac: np.ndarray) -> list[tuple[float, float]]:
