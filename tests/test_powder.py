@@ -192,7 +192,7 @@ def test_periodic_fcc_has_bragg_peaks_at_the_textbook_positions():
         qb = 2 * np.pi * np.linalg.norm(hkl) / a
         near = np.abs(q - qb) < 0.15
         assert abs(q[near][np.argmax(s[near])] - qb) < 0.02, hkl
-        assert s[near].max() > 3
+        assert s[near].max() > 2  # peaks; the absent reflections stay below 0.5
     for hkl in [(1, 0, 0), (1, 1, 0)]:
         qb = 2 * np.pi * np.linalg.norm(hkl) / a
         assert abs(s[np.argmin(np.abs(q - qb))]) < 0.5, hkl
