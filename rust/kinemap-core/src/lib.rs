@@ -33,6 +33,6 @@ pub use atoms::AtomSet;
 pub use error::{Error, Result};
 pub use grid::grid_amplitudes;
 pub use gridded::{PointPlan, RegularPlan};
-pub use pairs::{debye_sums, PairHistogram};
 pub use num_complex::Complex64;
+pub use pairs::{debye_sums, PairHistogram};
 pub use point::point_amplitudes;

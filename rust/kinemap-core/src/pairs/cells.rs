@@ -49,7 +49,8 @@ impl PeriodicBox {
         let ab = cross(a, b);
         let vol = dot(a, bc);
         let scale = dot(a, a).sqrt() * dot(b, b).sqrt() * dot(c, c).sqrt();
-        if !(vol.abs() > 1e-9 * scale.max(1e-300)) {
+        // (also catches a NaN volume)
+        if vol.abs().partial_cmp(&(1e-9 * scale.max(1e-300))) != Some(std::cmp::Ordering::Greater) {
             return Err(Error::Range(format!(
                 "periodic box is singular (volume {vol:.3e} Å³): its rows must be independent"
             )));
@@ -105,8 +106,8 @@ impl Grid {
     pub(crate) fn periodic(pbox: PeriodicBox, cutoff: f64, reach: usize, max_cells: usize) -> Self {
         let mut dims = [0usize; 3];
         for i in 0..3 {
-            dims[i] = ((reach as f64 * pbox.widths[i] / (cutoff * WIDTH_MARGIN)).floor() as usize)
-                .max(1);
+            dims[i] =
+                ((reach as f64 * pbox.widths[i] / (cutoff * WIDTH_MARGIN)).floor() as usize).max(1);
         }
         cap_cells(&mut dims, max_cells);
         Grid {
@@ -131,8 +132,7 @@ impl Grid {
         if let Some(c) = cutoff {
             for i in 0..3 {
                 let extent = hi[i] - lo[i];
-                dims[i] =
-                    ((reach as f64 * extent / (c * WIDTH_MARGIN)).floor() as usize).max(1);
+                dims[i] = ((reach as f64 * extent / (c * WIDTH_MARGIN)).floor() as usize).max(1);
             }
             cap_cells(&mut dims, max_cells);
         }
@@ -352,7 +352,12 @@ mod tests {
     fn sorting_keeps_every_atom_once() {
         let g = Grid::open([0.0; 3], [9.0, 9.0, 9.0], Some(3.0), 1, 1000);
         assert_eq!(g.dims, [2, 2, 2]);
-        let pos = [[0.5, 0.5, 0.5], [8.9, 0.0, 0.0], [4.6, 4.6, 4.6], [9.0, 9.0, 9.0]];
+        let pos = [
+            [0.5, 0.5, 0.5],
+            [8.9, 0.0, 0.0],
+            [4.6, 4.6, 4.6],
+            [9.0, 9.0, 9.0],
+        ];
         let cells = Cells::build(&g, &pos, &[1.0; 4], &[0, 1, 2, 3]);
         assert_eq!(cells.start.len(), 9);
         assert_eq!(*cells.start.last().unwrap(), 4);

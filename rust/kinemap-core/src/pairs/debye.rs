@@ -27,7 +27,7 @@ pub fn debye_sums(
     q: &[f64],
     threads: Option<usize>,
 ) -> Result<Vec<f64>> {
-    if n_nodes == 0 || hist.len() % n_nodes != 0 {
+    if n_nodes == 0 || !hist.len().is_multiple_of(n_nodes) {
         return Err(Error::Shape(format!(
             "histogram of {} values is not a whole number of rows of {n_nodes} nodes",
             hist.len()
@@ -102,7 +102,12 @@ pub fn debye_sums(
 }
 
 /// `Σ_{k ≥ 1} scaled[k, p] · sin(k θ_l)` for eight θ at once.
-fn lane_sums(scaled: &[f64], n_p: usize, n_nodes: usize, theta: &[f64; LANES]) -> Vec<[f64; LANES]> {
+fn lane_sums(
+    scaled: &[f64],
+    n_p: usize,
+    n_nodes: usize,
+    theta: &[f64; LANES],
+) -> Vec<[f64; LANES]> {
     let mut acc = vec![[0.0; LANES]; n_p];
     let (mut ss, mut cs) = ([0.0; LANES], [0.0; LANES]);
     sincos_lanes(theta, &mut ss, &mut cs);
@@ -160,7 +165,11 @@ mod tests {
                     .sum();
                 let scale: f64 = hist[p * n_nodes..(p + 1) * n_nodes].iter().sum();
                 let err = (got[p * q.len() + mi] - want).abs() / scale;
-                assert!(err < 1e-13, "pair {p}, Q = {qv}: {} vs {want}", got[p * q.len() + mi]);
+                assert!(
+                    err < 1e-13,
+                    "pair {p}, Q = {qv}: {} vs {want}",
+                    got[p * q.len() + mi]
+                );
             }
         }
     }

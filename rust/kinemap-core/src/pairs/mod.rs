@@ -302,8 +302,9 @@ impl PairHistogram {
             }
         }
         if self.cutoff.is_none() {
-            let diag = ((hi[0] - lo[0]).powi(2) + (hi[1] - lo[1]).powi(2) + (hi[2] - lo[2]).powi(2))
-                .sqrt();
+            let diag =
+                ((hi[0] - lo[0]).powi(2) + (hi[1] - lo[1]).powi(2) + (hi[2] - lo[2]).powi(2))
+                    .sqrt();
             let r_last = (self.n_nodes - 1) as f64 * self.dr;
             if diag > r_last {
                 return Err(Error::Range(format!(
@@ -556,12 +557,19 @@ mod tests {
         (*seed >> 11) as f64 / (1u64 << 53) as f64
     }
 
-    fn random_atoms(n: usize, span: f64, n_groups: u32, seed: u64) -> (Vec<[f64; 3]>, Vec<u32>, Vec<f64>) {
+    fn random_atoms(
+        n: usize,
+        span: f64,
+        n_groups: u32,
+        seed: u64,
+    ) -> (Vec<[f64; 3]>, Vec<u32>, Vec<f64>) {
         let mut s = seed;
         let pos: Vec<[f64; 3]> = (0..n)
             .map(|_| [span * lcg(&mut s), span * lcg(&mut s), span * lcg(&mut s)])
             .collect();
-        let g: Vec<u32> = (0..n).map(|_| (lcg(&mut s) * n_groups as f64) as u32).collect();
+        let g: Vec<u32> = (0..n)
+            .map(|_| (lcg(&mut s) * n_groups as f64) as u32)
+            .collect();
         let w: Vec<f64> = (0..n).map(|_| 0.5 + 0.5 * lcg(&mut s)).collect();
         (pos, g, w)
     }
@@ -589,7 +597,11 @@ mod tests {
             let c = cutoff.unwrap_or(f64::INFINITY);
             let want = brute(&pos, &g, &w, 3, 2200, dr, c, None);
             let got = h.values();
-            let err = got.iter().zip(&want).map(|(a, b)| (a - b).abs()).fold(0.0, f64::max);
+            let err = got
+                .iter()
+                .zip(&want)
+                .map(|(a, b)| (a - b).abs())
+                .fold(0.0, f64::max);
             assert!(err < 1e-9, "cutoff {cutoff:?}: max error {err}");
         }
     }
@@ -614,7 +626,11 @@ mod tests {
         h.add_within(&pos, &g, &w, Some(2)).unwrap();
         let want = brute(&pos, &g, &w, 2, n_nodes, dr, cutoff, Some(cell));
         let got = h.values();
-        let err = got.iter().zip(&want).map(|(a, b)| (a - b).abs()).fold(0.0, f64::max);
+        let err = got
+            .iter()
+            .zip(&want)
+            .map(|(a, b)| (a - b).abs())
+            .fold(0.0, f64::max);
         assert!(err < 1e-9, "max error {err}");
         let total: f64 = want.iter().sum();
         assert!(total > 100.0, "the test needs pairs: {total}");
@@ -637,7 +653,12 @@ mod tests {
         assert_eq!(grid.reach, 2, "the test is meant for half-cut-off cells");
         h.add_within(&pos, &g, &w, Some(2)).unwrap();
         let want = brute(&pos, &g, &w, 2, n_nodes, dr, cutoff, Some(cell));
-        let err = h.values().iter().zip(&want).map(|(a, b)| (a - b).abs()).fold(0.0, f64::max);
+        let err = h
+            .values()
+            .iter()
+            .zip(&want)
+            .map(|(a, b)| (a - b).abs())
+            .fold(0.0, f64::max);
         assert!(err < 1e-9, "max error {err}");
     }
 
@@ -648,13 +669,23 @@ mod tests {
         // at 1 Å (the other image at 3 Å is beyond the cut-off).
         let cell = [[4.0, 0.0, 0.0], [0.0, 4.0, 0.0], [0.0, 0.0, 4.0]];
         let mut h = PairHistogram::new(1, 101, 0.02, Some(2.0), Some(cell)).unwrap();
-        h.add_within(&[[0.1, 0.2, 0.3]], &[0], &[1.0], None).unwrap();
-        assert_eq!(h.pairs_counted(), 0);
-        h.add_within(&[[3.5, 0.0, 0.0], [0.5, 0.0, 0.0]], &[0, 0], &[1.0, 1.0], None)
+        h.add_within(&[[0.1, 0.2, 0.3]], &[0], &[1.0], None)
             .unwrap();
+        assert_eq!(h.pairs_counted(), 0);
+        h.add_within(
+            &[[3.5, 0.0, 0.0], [0.5, 0.0, 0.0]],
+            &[0, 0],
+            &[1.0, 1.0],
+            None,
+        )
+        .unwrap();
         assert_eq!(h.pairs_counted(), 1);
         let v = h.values();
-        assert!((v[50] - 1.0).abs() < 1e-12, "pair at 1 Å: node 50 = {}", v[50]);
+        assert!(
+            (v[50] - 1.0).abs() < 1e-12,
+            "pair at 1 Å: node 50 = {}",
+            v[50]
+        );
     }
 
     #[test]
@@ -671,8 +702,12 @@ mod tests {
             // chunks 0..700, 700..2000: within both, between them
             let mut split = new();
             let (a, b) = (0..700, 700..2000);
-            split.add_within(&pos[a.clone()], &g[a.clone()], &w[a.clone()], Some(2)).unwrap();
-            split.add_within(&pos[b.clone()], &g[b.clone()], &w[b.clone()], Some(2)).unwrap();
+            split
+                .add_within(&pos[a.clone()], &g[a.clone()], &w[a.clone()], Some(2))
+                .unwrap();
+            split
+                .add_within(&pos[b.clone()], &g[b.clone()], &w[b.clone()], Some(2))
+                .unwrap();
             split
                 .add_between(
                     &pos[b.clone()],
@@ -704,11 +739,20 @@ mod tests {
         let pos = [[0.0; 3], [0.0, f64::NAN, 0.0]];
         let e = h.add_within(&pos, &[0, 0], &[1.0, 1.0], None).unwrap_err();
         assert!(e.to_string().contains("atom 1"), "{e}");
-        let e = h.add_within(&[[0.0; 3], [0.5; 3]], &[0, 2], &[1.0, 1.0], None).unwrap_err();
-        assert!(e.to_string().contains("atom 1") && e.to_string().contains("2 groups"), "{e}");
-        let e = h.add_within(&[[0.0; 3], [0.5; 3]], &[0, 1], &[1.0, 1.5], None).unwrap_err();
+        let e = h
+            .add_within(&[[0.0; 3], [0.5; 3]], &[0, 2], &[1.0, 1.0], None)
+            .unwrap_err();
+        assert!(
+            e.to_string().contains("atom 1") && e.to_string().contains("2 groups"),
+            "{e}"
+        );
+        let e = h
+            .add_within(&[[0.0; 3], [0.5; 3]], &[0, 1], &[1.0, 1.5], None)
+            .unwrap_err();
         assert!(e.to_string().contains("outside [0, 1]"), "{e}");
-        let e = h.add_within(&[[0.0; 3], [5.0; 3]], &[0, 1], &[1.0, 1.0], None).unwrap_err();
+        let e = h
+            .add_within(&[[0.0; 3], [5.0; 3]], &[0, 1], &[1.0, 1.0], None)
+            .unwrap_err();
         assert!(e.to_string().contains("beyond the last node"), "{e}");
     }
 }
