@@ -69,7 +69,8 @@ def _thermal(h: np.ndarray, dr: float, b_sum: float) -> np.ndarray:
     kern = np.exp(-0.5 * (x / sigma) ** 2)
     kern /= kern.sum()
     ext = np.concatenate([-u[1:][::-1], u])  # odd extension: u(−r) = −u(r)
-    conv = np.convolve(ext, kern, mode="same")[n - 1:]
+    full = np.convolve(ext, kern, mode="full")
+    conv = full[half:half + len(ext)][n - 1:]  # centred, back on the nodes r ≥ 0
     out = r * conv
     out[0] = h[0]
     return out
