@@ -177,3 +177,39 @@ def test_bad_arguments_are_named(kwargs, match):
     r = args.pop("r")
     with pytest.raises(InvalidInputError, match=match):
         km.pair_distribution(model, r, **args)
+
+
+def test_far_apart_chunks_are_skipped_without_changing_results(monkeypatch):
+    # A long periodic bcc rod (12 × 3 × 3 cells) read in x-layers: most chunk pairs are farther
+    # apart than r_max and are not paired (chunks of two layers); the histogram is the same as in one piece (the
+    # integers of the core are exact). Same for a particle with a cut-off.
+    from kinemap.powder import _pairs
+
+    a = 3.3
+    cells = np.array([[i, j, k] for i in range(12) for j in range(3) for k in range(3)])
+    frac = (cells[:, None] + BCC[None]).reshape(-1, 3)
+    model = km.Model(frac * a, "Fe", cell=np.diag([12 * a, 3 * a, 3 * a]))
+    calls = {"n": 0}
+    real = _pairs._far_apart
+
+    def counting(*args):
+        out = real(*args)
+        calls["n"] += bool(out)
+        return out
+
+    monkeypatch.setattr(_pairs, "_far_apart", counting)
+    r = np.linspace(0, 4.5, 451)
+    one = km.pair_distribution(model, r, thermal=False)
+    layered = km.pair_distribution(model, r, thermal=False, chunk_atoms=36)
+    assert calls["n"] > 5
+    assert np.array_equal(one.G, layered.G)
+    # coordination of bcc (8 at a√3/2) survives the skipping
+    assert layered.coordination(2.7, 3.0) == pytest.approx(8, rel=1e-4)
+    calls["n"] = 0
+    particle = km.Model(frac * a, "Fe")
+    with pytest.warns(km.PowderCautionWarning, match="truncated"):
+        p1 = km.powder(particle, np.linspace(1, 10, 10), r_max=4.0)
+    with pytest.warns(km.PowderCautionWarning, match="truncated"):
+        p2 = km.powder(particle, np.linspace(1, 10, 10), r_max=4.0, chunk_atoms=36)
+    assert calls["n"] > 5
+    assert np.array_equal(p1.intensity, p2.intensity)

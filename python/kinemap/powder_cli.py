@@ -173,8 +173,8 @@ def _pairs_group(p):
     g.add_argument("--frames", default=None, metavar="SEL",
                    help="frames to average: all, START:STOP:STEP like 0:50:5, or a list 0,3,7 (default: the first)")
     g.add_argument("--particle", action="store_true", help="treat the model as a finite particle (ignore its box)")
-    g.add_argument("--chunk-atoms", type=int, default=1 << 22, metavar="N",
-                   help="atoms per streamed chunk (bounds memory; default 4194304)")
+    g.add_argument("--chunk-atoms", type=int, default=1 << 21, metavar="N",
+                   help="atoms per streamed chunk (bounds memory, about 100 bytes per atom; default 2097152)")
     return g
 
 

@@ -27,8 +27,9 @@ from .._resources import check_fits, human_bytes, resolve_threads
 from ..errors import InvalidInputError
 from ..model import Model, as_cell
 
-#: Atoms per chunk for pair histograms (both chunks of a pair are in memory, ~90 B per atom).
-DEFAULT_CHUNK_ATOMS = 1 << 22
+#: Atoms per chunk for pair histograms (both chunks of a pair are in memory, ~100 B per atom
+#: each with the core's cell lists: about 0.4 GB at this size).
+DEFAULT_CHUNK_ATOMS = 1 << 21
 
 
 def as_atom_source(obj, name: str = "model"):

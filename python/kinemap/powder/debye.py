@@ -273,6 +273,12 @@ def powder(model_or_source, q, *, probe="xray", box="model", r_max: float | None
     S(Q) = 1 + [I/N − ⟨|f|²⟩]/|⟨f⟩|² with N = Σ o_i, ⟨|f|²⟩ = Σ o_i|f_i|²/N and
     ⟨f⟩ = Σ o_i f_i/N (no Debye–Waller factor in the normalisation); F(Q) = Q[S(Q) − 1].
 
+    Streaming and memory: atoms are read in chunks of `chunk_atoms`; two chunks are held at a
+    time (about 100 bytes per atom each, with the core's cell lists), plus one histogram per
+    worker thread (group pairs × nodes × 16 bytes). A frame of N atoms in n = ⌈N/chunk_atoms⌉
+    chunks costs n(n + 1)/2 + n chunk reads (one pass to learn the groups and bounding boxes,
+    then each chunk paired with every later one); a model that fits in one chunk is read twice.
+
     Examples
     --------
     >>> import numpy as np, kinemap as km
