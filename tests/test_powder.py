@@ -297,6 +297,8 @@ def test_bad_models_are_refused():
         km.powder(km.Model([[0, 0, 0]], "Xx"), [1.0])
     with pytest.raises(InvalidInputError, match="no atoms"):
         km.powder(km.Model(np.zeros((0, 3)), []), [1.0])
+    with pytest.raises(InvalidInputError, match="occupancy 0"):
+        km.powder(km.Model([[0, 0, 0], [1, 0, 0]], "Fe", occupancy=0.0), [1.0])
     with pytest.raises(InvalidInputError, match="`model`"):
         km.powder(np.zeros((3, 3)), [1.0])
     box = km.Model([[0, 0, 0], [1, 1, 1]], "Fe", cell=np.eye(3) * 6.0)

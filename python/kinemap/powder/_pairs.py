@@ -320,6 +320,8 @@ def collect(sources: list, frames: list, *, box, r_max: float | None, dr: float,
     for f, sc in zip(frames, scans):
         if sc.n_atoms == 0:
             raise InvalidInputError(f"frame {f} of the model has no atoms")
+        if sc.occupancy_sum <= 0:
+            raise InvalidInputError(f"frame {f} of the model has only atoms of occupancy 0: nothing scatters")
     keys = sorted({k for sc in scans for k in sc.group_occupancy})
     table = GroupTable(labels=[k[0] for k in keys], b_iso=np.array([k[1] for k in keys]),
                        index={k: i for i, k in enumerate(keys)},
