@@ -46,7 +46,7 @@ def test_powder_writes_nexus_and_png(fcc_file, tmp_path, capsys):
 
 
 def test_powder_frames_and_particle(fcc_file, tmp_path):
-    path, model = fcc_file
+    path, _ = fcc_file
     out = tmp_path / "p.h5"
     assert run(["powder", str(path), "--q", "1:8:15", "--frames", "all", "--particle", "-o", str(out),
                 "--probe", "neutron", "-q", "--no-progress"]) == 0
@@ -56,7 +56,7 @@ def test_powder_frames_and_particle(fcc_file, tmp_path):
 
 
 def test_pdf_command(fcc_file, tmp_path):
-    path, model = fcc_file
+    path, _ = fcc_file
     out = tmp_path / "g.h5"
     assert run(["pdf", str(path), "--r", "0:6:601", "-o", str(out), "--png", "-q", "--no-progress"]) == 0
     with h5py.File(out) as f:

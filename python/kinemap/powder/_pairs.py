@@ -344,7 +344,7 @@ def collect(sources: list, frames: list, *, box, r_max: float | None, dr: float,
             float(np.sqrt(((sc.hi - sc.lo) ** 2).sum())) for sc in scans)
     if cutoff is not None and not (math.isfinite(cutoff) and cutoff > 0):
         raise InvalidInputError(f"`r_max` must be a positive number of Å, got {cutoff!r}")
-    n_nodes = int(math.floor(span / dr)) + extra_nodes
+    n_nodes = math.floor(span / dr) + extra_nodes
     need = histogram_bytes(table.n_groups, n_nodes, threads)
     check_fits(need, f"pair histograms of {table.n_pairs} group pairs × {n_nodes} nodes "
                      f"(dr = {dr:.3g} Å up to {span:.4g} Å)")

@@ -86,7 +86,6 @@ def coherent_parts(data, probe, q: np.ndarray, *, window: str, threads) -> dict:
     fg, tg = group_factors(data, probe, q)
     nf = data.n_frames
     occ = data.group_occupancy / nf
-    n_scat = data.occupancy_sum / nf
     self_term = (occ[:, None] * (fg.real**2 + fg.imag**2)).sum(axis=0)
     pairs = data.groups.pairs()
     gi = np.array([p[0] for p in pairs])
@@ -129,7 +128,7 @@ def _resolution_grid(q: np.ndarray, fwhm: float) -> tuple[np.ndarray, np.ndarray
     sigma = fwhm / (2.0 * math.sqrt(2.0 * math.log(2.0)))
     step = sigma / 6.0
     lo, hi = float(q.min()) - 6.0 * sigma, float(q.max()) + 6.0 * sigma
-    n = int(math.ceil((hi - lo) / step)) + 1
+    n = math.ceil((hi - lo) / step) + 1
     if n > 200_000:
         raise InvalidInputError(
             f"`resolution` = {fwhm:g} 1/angstrom is too fine for the Q range {q.min():g}..{q.max():g} "

@@ -64,7 +64,7 @@ def _thermal(h: np.ndarray, dr: float, b_sum: float) -> np.ndarray:
     r = np.arange(n) * dr
     u = np.zeros(n)
     u[1:] = h[1:] / r[1:]
-    half = int(math.ceil(6.0 * sigma / dr))
+    half = math.ceil(6.0 * sigma / dr)
     x = np.arange(-half, half + 1) * dr
     kern = np.exp(-0.5 * (x / sigma) ** 2)
     kern /= kern.sum()
@@ -260,7 +260,7 @@ def _fourier(sources, frame_ids, labels, rv, *, box, density, probe, q_range, q_
         dq = min(0.01, np.pi / (20.0 * float(rv[-1]))) if rv[-1] > 0 else 0.01
     if isinstance(dq, bool) or not isinstance(dq, (int, float)) or not (math.isfinite(dq) and dq > 0):
         raise InvalidInputError(f"`dq` must be a positive number (1/angstrom), got {dq!r}")
-    n_q = int(math.ceil((q_max - q_min) / dq)) + 1
+    n_q = math.ceil((q_max - q_min) / dq) + 1
     if n_q > 1_000_000:
         raise InvalidInputError(f"`dq` = {dq:g} gives {n_q} Q points over {q_min:g}..{q_max:g}; use a larger dq")
     q = as_q(np.linspace(q_min, q_max, n_q))
@@ -271,7 +271,7 @@ def _fourier(sources, frame_ids, labels, rv, *, box, density, probe, q_range, q_
     data = _pairs.collect(sources, frame_ids, box=box, r_max=None, dr=choose_dr(q_max, DEFAULT_BIN_TOL),
                           threads=threads, chunk_atoms=chunk_atoms, progress=progress)
     parts = coherent_parts(data, pr, q, window="lorch", threads=threads)
-    s_q, f_q = normalise(parts["self"] + parts["distinct"], parts, q)
+    _, f_q = normalise(parts["self"] + parts["distinct"], parts, q)
     if f_q is None:
         raise InvalidInputError("the average scattering factor <f> is zero (a null alloy): F(Q) and G(r) in "
                                 "the Faber-Ziman normalisation are undefined for this probe")
