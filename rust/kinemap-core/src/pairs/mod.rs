@@ -350,34 +350,30 @@ impl PairHistogram {
             pair_offset: &self.pair_offset,
         };
         let len = self.acc.len();
+        let job = Job {
+            ctx: &ctx,
+            grid,
+            a,
+            b,
+            within,
+            offsets: &offsets,
+            items: &items,
+            next: AtomicUsize::new(0),
+        };
         let results: Vec<(Vec<u128>, u128)> = crate::pool::run(threads, || {
             let workers = rayon::current_num_threads().max(1).min(items.len());
-            let next = AtomicUsize::new(0);
             (0..workers)
                 .into_par_iter()
                 .map(|_| {
-                    let mut acc = vec![0u128; len];
-                    let mut count = 0u128;
-                    loop {
-                        let it = next.fetch_add(1, Ordering::Relaxed);
-                        let Some(&(c, i0, i1)) = items.get(it) else {
-                            break;
-                        };
-                        let cc = grid.coords(c);
-                        if within {
-                            let r = a.range(c);
-                            ctx.block(a, i0, i1, a, r, [0.0; 3], true, &mut acc, &mut count);
-                        }
-                        for &o in &offsets {
-                            if let Some((cb, shift)) = grid.neighbour(cc, o) {
-                                let r = b.range(cb);
-                                if !r.is_empty() {
-                                    ctx.block(a, i0, i1, b, r, shift, false, &mut acc, &mut count);
-                                }
-                            }
-                        }
+                    if len <= LOCAL_MAX {
+                        let mut sink = Local::new(len);
+                        let count = job.drain(&mut sink);
+                        (sink.into_total(), count)
+                    } else {
+                        let mut sink = Direct(vec![0u128; len]);
+                        let count = job.drain(&mut sink);
+                        (sink.0, count)
                     }
-                    (acc, count)
                 })
                 .collect()
         })?;
@@ -388,6 +384,120 @@ impl PairHistogram {
             self.pairs += count;
         }
         Ok(())
+    }
+}
+
+/// The work of one call, shared by the worker threads: items are taken from `next`.
+struct Job<'a> {
+    ctx: &'a Ctx<'a>,
+    grid: &'a Grid,
+    a: &'a Cells,
+    b: &'a Cells,
+    within: bool,
+    offsets: &'a [[i64; 3]],
+    items: &'a [(usize, usize, usize)],
+    next: AtomicUsize,
+}
+
+impl Job<'_> {
+    /// Take work items until none is left; returns the number of pairs binned.
+    fn drain<S: Sink>(&self, sink: &mut S) -> u128 {
+        let mut count = 0u128;
+        loop {
+            let it = self.next.fetch_add(1, Ordering::Relaxed);
+            let Some(&(c, i0, i1)) = self.items.get(it) else {
+                break;
+            };
+            let cc = self.grid.coords(c);
+            let (a, b) = (self.a, self.b);
+            if self.within {
+                let r = a.range(c);
+                self.ctx
+                    .block(a, i0, i1, a, r, [0.0; 3], true, sink, &mut count);
+            }
+            for &o in self.offsets {
+                if let Some((cb, shift)) = self.grid.neighbour(cc, o) {
+                    let r = b.range(cb);
+                    if !r.is_empty() {
+                        self.ctx
+                            .block(a, i0, i1, b, r, shift, false, sink, &mut count);
+                    }
+                }
+            }
+        }
+        count
+    }
+}
+
+/// Where a worker adds its fixed-point contributions.
+trait Sink {
+    /// Make room for `hits` more pairs (each adds at most 2⁴⁸ to two nodes).
+    fn reserve(&mut self, hits: u32);
+    /// Add `v` to node `idx`.
+    fn add(&mut self, idx: usize, v: u64);
+}
+
+/// Histograms up to this many entries are accumulated in 64-bit words and flushed into
+/// 128-bit totals at least every 2¹⁶ − 1 pairs (a pair adds at most 2⁴⁸ to a node, so no word
+/// can overflow in between). One add instead of two per node; a flush is one pass over the
+/// histogram, cheap for histograms this small. Integers: the totals are exact either way.
+const LOCAL_MAX: usize = 1 << 16;
+
+/// 64-bit accumulators flushed into 128-bit totals.
+struct Local {
+    words: Vec<u64>,
+    total: Vec<u128>,
+    since: u32,
+}
+
+impl Local {
+    fn new(len: usize) -> Self {
+        Local {
+            words: vec![0; len],
+            total: vec![0; len],
+            since: 0,
+        }
+    }
+
+    fn flush(&mut self) {
+        for (t, w) in self.total.iter_mut().zip(self.words.iter_mut()) {
+            *t += *w as u128;
+            *w = 0;
+        }
+        self.since = 0;
+    }
+
+    fn into_total(mut self) -> Vec<u128> {
+        self.flush();
+        self.total
+    }
+}
+
+impl Sink for Local {
+    #[inline(always)]
+    fn reserve(&mut self, hits: u32) {
+        if self.since + hits > u16::MAX as u32 {
+            self.flush();
+        }
+        self.since += hits;
+    }
+
+    #[inline(always)]
+    fn add(&mut self, idx: usize, v: u64) {
+        self.words[idx] += v;
+    }
+}
+
+/// 128-bit totals updated directly (large histograms).
+struct Direct(Vec<u128>);
+
+impl Sink for Direct {
+    #[inline(always)]
+    fn reserve(&mut self, _hits: u32) {}
+
+    #[inline(always)]
+    fn add(&mut self, idx: usize, v: u64) {
+        self.0[idx] += v as u128;
     }
 }
 
@@ -406,7 +516,7 @@ impl Ctx<'_> {
     /// (`triangle`: the same cell of the same set, only `j > i`).
     #[allow(clippy::too_many_arguments)]
     #[inline]
-    fn block(
+    fn block<S: Sink>(
         &self,
         a: &Cells,
         i0: usize,
@@ -415,7 +525,7 @@ impl Ctx<'_> {
         jr: std::ops::Range<usize>,
         shift: [f64; 3],
         triangle: bool,
-        acc: &mut [u128],
+        acc: &mut S,
         count: &mut u128,
     ) {
         let mut d2 = [0.0f64; D2_BUF];
@@ -444,7 +554,9 @@ impl Ctx<'_> {
                 for l in 0..n {
                     mask |= ((d2[l] <= self.cut2) as u64) << l;
                 }
-                *count += mask.count_ones() as u128;
+                let hits = mask.count_ones();
+                *count += hits as u128;
+                acc.reserve(hits);
                 while mask != 0 {
                     let l = mask.trailing_zeros() as usize;
                     mask &= mask - 1;
@@ -457,8 +569,8 @@ impl Ctx<'_> {
                     let wfix = round_to_u64(wi * b.w[j] * SCALE);
                     let upper = round_to_u64(wfix as f64 * frac);
                     let base = row[b.g[j] as usize] + k;
-                    acc[base] += (wfix - upper) as u128;
-                    acc[base + 1] += upper as u128;
+                    acc.add(base, wfix - upper);
+                    acc.add(base + 1, upper);
                 }
                 j0 += n;
             }
@@ -604,6 +716,24 @@ mod tests {
                 .fold(0.0, f64::max);
             assert!(err < 1e-9, "cutoff {cutoff:?}: max error {err}");
         }
+    }
+
+    #[test]
+    fn large_histograms_take_the_direct_path() {
+        // More than LOCAL_MAX entries: 128-bit totals updated directly; same brute force.
+        let (pos, g, w) = random_atoms(300, 12.0, 2, 5);
+        let (n_nodes, dr) = (30_000, 0.0002);
+        assert!(3 * n_nodes > LOCAL_MAX);
+        let mut h = PairHistogram::new(2, n_nodes, dr, Some(5.5), None).unwrap();
+        h.add_within(&pos, &g, &w, Some(2)).unwrap();
+        let want = brute(&pos, &g, &w, 2, n_nodes, dr, 5.5, None);
+        let err = h
+            .values()
+            .iter()
+            .zip(&want)
+            .map(|(a, b)| (a - b).abs())
+            .fold(0.0, f64::max);
+        assert!(err < 1e-9, "max error {err}");
     }
 
     #[test]
