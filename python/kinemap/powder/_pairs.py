@@ -294,11 +294,12 @@ def shell_volumes(n_nodes: int, dr: float, cutoff: float | None) -> np.ndarray:
 
 
 def histogram_bytes(n_groups: int, n_nodes: int, threads: int | None) -> int:
-    """Memory of the accumulators: one per worker thread plus the result (16 B per node)."""
+    """Memory of the accumulators: one per worker thread (24 B per node: 64-bit words and
+    128-bit totals), the merged result and its float copies (32 B per node)."""
     import os
 
     workers = threads if threads is not None else (os.cpu_count() or 1)
-    return n_groups * (n_groups + 1) // 2 * n_nodes * 16 * (workers + 2)
+    return n_groups * (n_groups + 1) // 2 * n_nodes * (24 * workers + 32)
 
 
 def collect(sources: list, frames: list, *, box, r_max: float | None, dr: float,

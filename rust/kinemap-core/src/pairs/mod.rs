@@ -25,8 +25,10 @@
 //!   it is added, and integers add exactly in any order. The distance of a pair is computed
 //!   as `(r_j − r_i) + shift`, whose rounding is symmetric under swapping the atoms, so a pair
 //!   gives the same integers whichever call, chunk or thread meets it. Each worker thread
-//!   fills its own histogram; the histograms are added at the end.
-//! * **Memory.** `O(atoms of the call) + threads × n_pairs × n_nodes × 16 bytes`.
+//!   fills its own histogram (64-bit words flushed into 128-bit totals every 2¹⁶ − 1 pairs
+//!   when the histogram is small, the totals directly otherwise); the histograms are added
+//!   at the end.
+//! * **Memory.** `O(atoms of the call) + threads × n_pairs × n_nodes × 24 bytes`.
 
 pub(crate) mod cells;
 mod debye;
