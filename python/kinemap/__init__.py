@@ -21,6 +21,7 @@ from .io import open_model, write_h5md
 from .frames import FrameAverages, average_frames
 from .geometry import Detector, bin_frames, expected_counts, read_frames
 from .compare import BraggExclusion, compare, delta_pdf, open_map, rank_models, symmetrize
+from .powder import PairDistribution, PowderCautionWarning, PowderPattern, pair_distribution, powder
 
 __all__ = [
     "__version__",
@@ -50,6 +51,11 @@ __all__ = [
     "delta_pdf",
     "BraggExclusion",
     "symmetrize",
+    "powder",
+    "pair_distribution",
+    "PowderPattern",
+    "PairDistribution",
+    "PowderCautionWarning",
 ]
 
 # Sub-packages with heavier imports (matplotlib, scipy) load on first use: km.plot, km.quasi.

@@ -92,3 +92,54 @@ class PointPlan:
     def finish(self, slot: int, *, threads: int | None = None) -> npt.NDArray[np.complex128]: ...
 
 def gridded_kernel_width(tol: float, upsample: float) -> int: ...
+
+class PairHistogram:
+    """Weighted pair-distance histograms per unordered group pair on nodes k·dr (Å)."""
+
+    def __init__(
+        self,
+        n_groups: int,
+        n_nodes: int,
+        dr: float,
+        cutoff: float | None = None,
+        box: npt.NDArray[np.float64] | None = None,
+    ) -> None: ...
+    @property
+    def n_groups(self) -> int: ...
+    @property
+    def n_pairs(self) -> int: ...
+    @property
+    def n_nodes(self) -> int: ...
+    @property
+    def dr(self) -> float: ...
+    @property
+    def pairs_counted(self) -> int: ...
+    def add_within(
+        self,
+        positions: npt.NDArray[np.float64],
+        groups: npt.NDArray[np.uint32],
+        weights: npt.NDArray[np.float64],
+        *,
+        threads: int | None = None,
+    ) -> None: ...
+    def add_between(
+        self,
+        positions_a: npt.NDArray[np.float64],
+        groups_a: npt.NDArray[np.uint32],
+        weights_a: npt.NDArray[np.float64],
+        positions_b: npt.NDArray[np.float64],
+        groups_b: npt.NDArray[np.uint32],
+        weights_b: npt.NDArray[np.float64],
+        *,
+        threads: int | None = None,
+    ) -> None: ...
+    def values(self) -> npt.NDArray[np.float64]: ...
+
+def debye_sums(
+    hist: npt.NDArray[np.float64],
+    dr: float,
+    q: npt.NDArray[np.float64],
+    *,
+    threads: int | None = None,
+) -> npt.NDArray[np.float64]: ...
+def pair_index(g: int, h: int, n_groups: int) -> int: ...

@@ -20,6 +20,7 @@ def build_parser() -> argparse.ArgumentParser:
     from ._commands import add_parsers
     from ._compare import add_parsers as add_compare_parsers
     from ._frames import add_parsers as add_frames_parsers
+    from ._powder import add_parsers as add_powder_parsers
 
     fmt = argparse.RawDescriptionHelpFormatter
     parser = Parser(
@@ -30,13 +31,15 @@ def build_parser() -> argparse.ArgumentParser:
                      "             kinemap map MODEL --supercell 20,20,20 --hkl --h -1:5:121 --k -1:5:121 --l 0 "
                      "-o map.h5 --png\n"
                      "             kinemap average MODEL --frames 0:50 --hkl --h 0:4:81 --k 0:4:81 --l 0 -o run\n"
-                     "             kinemap render map.h5 -o map.png"),
+                     "             kinemap render map.h5 -o map.png\n"
+                     "             kinemap powder MODEL -o powder.h5 --png   |   kinemap pdf MODEL -o pdf.h5 --png"),
         epilog=EPILOG_CODES, formatter_class=fmt)
     parser.add_argument("--version", action="version", version=f"kinemap {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=Parser)
     add_parsers(sub, fmt)
     add_frames_parsers(sub)
     add_compare_parsers(sub)
+    add_powder_parsers(sub)
     return parser
 
 

@@ -5,6 +5,7 @@
 mod arrays;
 mod errors;
 mod gridded;
+mod pairs;
 
 use errors::CoreErr;
 use numpy::{Complex64, IntoPyArray, PyArray1, PyReadonlyArray1, PyReadonlyArray2};
@@ -102,6 +103,8 @@ mod _core {
     use super::grid_amplitudes_py;
     #[pymodule_export]
     use super::gridded::{gridded_kernel_width_py, PyPointPlan, PyRegularPlan};
+    #[pymodule_export]
+    use super::pairs::{debye_sums_py, pair_index_py, PyPairHistogram};
     #[pymodule_export]
     use super::point_amplitudes_py;
     #[pymodule_export]

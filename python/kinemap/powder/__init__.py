@@ -1,0 +1,15 @@
+"""Powder patterns (Debye equation) and pair distribution functions of atomistic models.
+
+* :func:`powder` — I(Q), S(Q), F(Q) on a |Q| axis from binned pair-distance histograms
+  computed in the Rust core (parallel, streamed, identical for any thread count).
+* :func:`pair_distribution` — G(r), g(r) and the partial g_αβ(r), directly from the
+  histograms or through a computed F(Q) over a chosen Q range.
+"""
+
+from ._pairs import DEFAULT_CHUNK_ATOMS
+from ._results import PairDistribution, PowderPattern
+from .debye import PowderCautionWarning, powder
+from .pdf import pair_distribution
+
+__all__ = ["powder", "pair_distribution", "PowderPattern", "PairDistribution", "PowderCautionWarning",
+           "DEFAULT_CHUNK_ATOMS"]
