@@ -21,7 +21,8 @@ from .io import open_model, write_h5md
 from .frames import FrameAverages, average_frames
 from .geometry import Detector, bin_frames, expected_counts, read_frames
 from .compare import BraggExclusion, compare, delta_pdf, open_map, rank_models, symmetrize
-from .powder import PairDistribution, PowderCautionWarning, PowderPattern, pair_distribution, powder
+from .powder import (PairDistribution, PowderCautionWarning, PowderPattern, compare_pdf, compare_powder,
+                     pair_distribution, powder)
 
 __all__ = [
     "__version__",
@@ -56,6 +57,8 @@ __all__ = [
     "PowderPattern",
     "PairDistribution",
     "PowderCautionWarning",
+    "compare_powder",
+    "compare_pdf",
 ]
 
 # Sub-packages with heavier imports (matplotlib, scipy) load on first use: km.plot, km.quasi.

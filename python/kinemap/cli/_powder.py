@@ -57,6 +57,11 @@ def _pair(text: str, option: str) -> tuple[float, float]:
 
 
 def _q_values(args) -> np.ndarray:
+    if args.measured is not None:
+        from ..powder import read_profile
+
+        q, _, _ = read_profile(args.measured, x="two_theta" if args.two_theta else "q", wavelength=args.wavelength)
+        return q
     if args.q_file is not None:
         p = Path(args.q_file)
         if not p.exists():
@@ -122,6 +127,18 @@ def run_powder(args) -> int:
     md = pat.metadata
     _say(args, f"powder pattern written: {out}  ({md['pairs_binned']} pairs, dr {md['dr_angstrom']:.4g} angstrom, "
                f"max I {float(pat.intensity.max()):.6g} {pat.units}^2)")
+    if args.measured is not None:
+        from ..powder import compare_powder
+
+        cmp = compare_powder(pat, args.measured, x="two_theta" if args.two_theta else "q",
+                             wavelength=args.wavelength, background=args.background)
+        _say(args, cmp.summary())
+        cmp_out = out.with_name(out.stem + "_compare.h5")
+        cmp.save(cmp_out, overwrite=args.overwrite)
+        _say(args, f"comparison with {args.measured} written: {cmp_out}")
+        if png is not None:
+            cmp.plot(cmp_out.with_suffix(".png"), overwrite=args.overwrite)
+            _say(args, f"picture written: {cmp_out.with_suffix('.png')}")
     if png is not None:
         from ..powder._results import save_plot
 
@@ -198,6 +215,13 @@ def add_parsers(subparsers) -> None:
     g = p.add_argument_group("Q values (1/angstrom; choose one)")
     g.add_argument("--q", default="0.5:20:2000", metavar="MIN:MAX:N", help="equally spaced |Q| (default 0.5:20:2000)")
     g.add_argument("--q-file", metavar="FILE", help="|Q| values from a text file (one per line) or a .npy array")
+    g.add_argument("--measured", metavar="FILE",
+                   help="a measured pattern (columns Q I [sigma], .npy, or 1-D NeXus): compute at its Q, fit scale "
+                        "and background, print R, wR, chi2 and write OUT_compare.h5")
+    g.add_argument("--two-theta", action="store_true",
+                   help="the measured pattern's first column is 2theta in degrees (give --wavelength)")
+    g.add_argument("--background", default="flat", choices=["none", "flat", "linear", "quadratic", "cubic"],
+                   help="background fitted with --measured (default flat)")
     _probe_group(p, "xray")
     g = _pairs_group(p)
     g.add_argument("--r-max", type=float, metavar="ANGSTROM",

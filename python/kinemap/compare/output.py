@@ -74,7 +74,7 @@ def _grid_group(entry, grid) -> None:
     gg.create_dataset("kind", data=grid.kind)
     gg.create_dataset("shape", data=np.asarray(grid.shape, dtype=np.int64))
     for name in ("origin", "steps", "cell", "hkl_origin", "hkl_steps"):
-        val = getattr(grid, name)
+        val = getattr(grid, name, None)
         if val is not None:
             d = gg.create_dataset(name, data=np.asarray(val, dtype=np.float64))
             units = {"cell": "angstrom", "hkl_origin": "r.l.u.", "hkl_steps": "r.l.u."}
@@ -278,7 +278,7 @@ def comparison_figure(cmp, *, slice_axis=None, slice_index=None, profile=None, s
     if scale not in ("log", "linear"):
         raise InvalidInputError(f"`scale` must be 'log' or 'linear', got {scale!r}")
     grid = cmp.grid
-    if not grid.is_regular:
+    if not grid.is_regular and not (grid.ndim == 1 and grid.axis_values):  # 1-D: e.g. a powder pattern
         raise InvalidInputError("a map on arbitrary q-points has no layout to draw")
     nd = len(grid.shape)
     if nd == 1:
