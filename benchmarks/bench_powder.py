@@ -44,9 +44,10 @@ def main() -> None:
     ap.add_argument("--skip-single-thread", action="store_true")
     args = ap.parse_args()
 
+    from scipy.spatial import cKDTree
+
     import kinemap as km
     from kinemap import _core
-    from scipy.spatial import cKDTree
 
     n = int(args.atoms)
     density = 0.085

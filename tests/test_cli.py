@@ -11,11 +11,11 @@ import sys
 import h5py
 import numpy as np
 import pytest
+from conftest import numpy_amplitude
 
 import kinemap as km
 from kinemap.cli import main
 from kinemap.io import write_h5md
-from conftest import numpy_amplitude
 
 CELL = np.array([[6.0, 0.0, 0.0], [0.0, 6.0, 0.0], [0.0, 0.0, 6.0]])
 
@@ -197,7 +197,8 @@ def test_unwritable_output(tmp_path, traj, capsys, output):
     (["map", "{m}", "--line", "0,0,0", "1,0,0", "-o", "{d}/x.h5"], 2, "--line needs --size"),
     (["map", "{m}", "--frame", "9", "--line", "0,0,0", "1,0,0", "--size", "3", "-o", "{d}/x.h5"], 1, "`frame` 9 is out of range"),
     (["map", "{m}", "--probe", "gamma", "--line", "0,0,0", "1,0,0", "--size", "3", "-o", "{d}/x.h5"], 1, "unknown probe 'gamma'"),
-    (["average", "{m}", "--frames", "0:2:0", "--line", "0,0,0", "1,0,0", "--size", "3", "-o", "{d}/x"], 1, "the step cannot be 0"),
+    (["average", "{m}", "--frames", "0:2:0", "--line", "0,0,0", "1,0,0", "--size", "3", "-o", "{d}/x"], 1,
+     "the step cannot be 0"),
     (["info", "{d}/nothing.h5"], 3, "no such file"),
     (["render", "{m}"], 3, "is not a kinemap map"),
     (["map", "{m}", "--voltage", "200", "--line", "0,0,0", "1,0,0", "--size", "3", "-o", "{d}/x.h5"], 2, "--voltage"),

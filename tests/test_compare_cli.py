@@ -12,7 +12,6 @@ import pytest
 import kinemap as km
 from kinemap import cli
 
-
 A = 3.6
 
 

@@ -81,7 +81,7 @@ def test_hkl_axes_in_another_order_with_the_file_cell(tmp_path, rng):
     # back in h, k, l order on QGrid.hkl of that cell.
     h = np.linspace(-1, 1, 5)
     k = np.linspace(0, 1, 3)
-    l = np.linspace(-0.5, 0.5, 4)  # noqa: E741
+    l = np.linspace(-0.5, 0.5, 4)
     data = rng.random((4, 3, 5))
     path = nexus_file(tmp_path / "hkl.h5", data, [l, k, h], names=["l", "k", "h"],
                       units=["r.l.u.", "r.l.u.", "r.l.u."], sample=np.array([4.0, 5.0, 6.0, 90.0, 90.0, 90.0]))
@@ -203,7 +203,7 @@ def maps(tmp_path, rng):
     meas = 1.3 * calc + 4 + rng.normal(size=grid.shape) * sig
     meas[8, 8, :] = np.nan       # a beamstop
     meas[:, 3, 2] = np.nan       # a detector gap
-    h, k, l = (grid.axis_values[i] for i in range(3))  # noqa: E741
+    h, k, l = (grid.axis_values[i] for i in range(3))
     path = nexus_file(tmp_path / "meas.h5", meas, [h, k, l], names=["h", "k", "l"], errors=sig,
                       units=["r.l.u."] * 3, sample=np.array([4.0, 4, 4, 90, 90, 90]))
     calc_pat = km.Pattern(grid, intensity=calc, units="1")

@@ -10,12 +10,12 @@ unit cells (M even) vanishes at half-integer h.
 import h5py
 import numpy as np
 import pytest
+from conftest import numpy_amplitude
 
 import kinemap as km
 from kinemap.errors import InvalidInputError
 from kinemap.frames import FewFramesWarning, average_frames
 from kinemap.io import write_h5md
-from conftest import numpy_amplitude
 
 
 def test_averages_against_numpy(tmp_path, rng):

@@ -11,14 +11,21 @@ detector; a NumPy direct sum for the model's intensity at pixel q.
 
 import numpy as np
 import pytest
+from conftest import numpy_amplitude
 from scipy.spatial.transform import Rotation
 
 import kinemap as km
 from kinemap.errors import InvalidInputError
-from kinemap.geometry import (busing_levy_b, crossing_angles, lorentz_factor, orientation_from_ub,
-                              predict_reflections, rotation_matrix, ub_from_orientation)
+from kinemap.geometry import (
+    busing_levy_b,
+    crossing_angles,
+    lorentz_factor,
+    orientation_from_ub,
+    predict_reflections,
+    rotation_matrix,
+    ub_from_orientation,
+)
 from kinemap.model import cell_from_parameters
-from conftest import numpy_amplitude
 
 
 def _scipy_rot(axis, deg):

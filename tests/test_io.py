@@ -65,7 +65,8 @@ def test_plain_layout_missing_dataset_lists_file(tmp_path):
     with h5py.File(tmp_path / "x.h5", "w") as f:
         f["coords"] = np.zeros((4, 3))
         f["species"] = np.array(["O"] * 4, dtype=h5py.string_dtype())
-    with pytest.raises(ModelFileError, match=r"'/positions' \(positions\) is missing; the file has: /coords \[4, 3\], /species \[4\]"):
+    with pytest.raises(ModelFileError,
+                       match=r"'/positions' \(positions\) is missing; the file has: /coords \[4, 3\], /species \[4\]"):
         open_model(tmp_path / "x.h5")
 
 
@@ -237,7 +238,7 @@ def test_convert_refuses_species_change(tmp_path):
 
 # ------------------------------------------------------------------------ ASE files
 def test_ase_poscar(tmp_path):
-    ase = pytest.importorskip("ase", reason="ASE is the optional extra for crystal files")
+    pytest.importorskip("ase", reason="ASE is the optional extra for crystal files")
     import ase.io
     from ase.build import bulk
 

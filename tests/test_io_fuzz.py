@@ -312,7 +312,7 @@ def test_fuzz_hdf5_readers(tmp_path, maker, suffix, flips):
             what += " + damaged bytes"
         try:
             outcome = exercise(path)
-        except Exception as exc:  # noqa: BLE001 - the point of the test
+        except Exception as exc:
             raise AssertionError(f"case {case} ({what}): {type(exc).__name__}: {exc}") from exc
         outcomes[outcome] = outcomes.get(outcome, 0) + 1
         path.unlink()
@@ -334,7 +334,7 @@ def test_fuzz_text_readers(tmp_path, maker, suffix):
         path.write_bytes(data)
         try:
             outcome = exercise(path, species_map="1=Fe,2=Ni")
-        except Exception as exc:  # noqa: BLE001 - the point of the test
+        except Exception as exc:
             raise AssertionError(f"case {case}: {type(exc).__name__}: {exc}\n--- file ---\n"
                                  f"{data[:2000].decode('utf-8', 'replace')}") from exc
         outcomes[outcome] = outcomes.get(outcome, 0) + 1
@@ -352,7 +352,7 @@ def test_fuzz_byte_flips_of_hdf5_without_variable_strings(tmp_path):
         path.write_bytes(flip_bytes(data, rng))
         try:
             outcome = exercise(path)
-        except Exception as exc:  # noqa: BLE001 - the point of the test
+        except Exception as exc:
             raise AssertionError(f"case {case}: {type(exc).__name__}: {exc}") from exc
         outcomes[outcome] = outcomes.get(outcome, 0) + 1
     assert outcomes.get("ModelFileError", 0) > 0

@@ -399,9 +399,8 @@ BAD_NAMES = ["bad-\udcff.h5md", b"bad-\xff.h5md"]
 def test_non_utf8_names_refused_up_front(tmp_path, rng, name):
     """Issue: non-UTF-8 file names failed only after the whole computation."""
     good = write_h5md(tmp_path / "good.h5md", km.Model(rng.uniform(0, 1, (4, 3)), "Fe"))
-    bad = name if isinstance(name, str) else name
     with pytest.raises(InvalidInputError, match="not valid UTF-8"):
-        open_model(bad)
+        open_model(name)
     with pytest.raises(InvalidInputError, match="not valid UTF-8"):
         write_h5md(os.path.join(str(tmp_path), name) if isinstance(name, str)
                    else os.path.join(os.fsencode(tmp_path), name), km.Model(np.zeros((1, 3)), "Fe"))

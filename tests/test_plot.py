@@ -5,14 +5,14 @@ import matplotlib
 
 matplotlib.use("Agg")
 
-import matplotlib.image as mpimg  # noqa: E402
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
-import pytest  # noqa: E402
+import matplotlib.image as mpimg
+import matplotlib.pyplot as plt
+import numpy as np
+import pytest
 
-import kinemap as km  # noqa: E402
-from kinemap.errors import InvalidInputError  # noqa: E402
-from kinemap.plot import plot_map, plot_profile, plot_slice, render  # noqa: E402
+import kinemap as km
+from kinemap.errors import InvalidInputError
+from kinemap.plot import plot_map, plot_profile, plot_slice, render
 
 
 @pytest.fixture

@@ -13,13 +13,14 @@ from __future__ import annotations
 import math
 from itertools import combinations
 
-import kinemap as km
-import kinemap.quasi as kq
 import numpy as np
 import pytest
+from scipy.spatial import cKDTree
+
+import kinemap as km
+import kinemap.quasi as kq
 from kinemap.errors import InvalidInputError
 from kinemap.model import AtomSource
-from scipy.spatial import cKDTree
 
 TAU = (1 + math.sqrt(5)) / 2
 

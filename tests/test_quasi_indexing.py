@@ -10,10 +10,11 @@ from __future__ import annotations
 
 import math
 
-import kinemap as km
-import kinemap.quasi as kq
 import numpy as np
 import pytest
+
+import kinemap as km
+import kinemap.quasi as kq
 from kinemap.errors import InvalidInputError
 
 TAU = (1 + math.sqrt(5)) / 2

@@ -31,14 +31,15 @@ import cmath
 import math
 from itertools import combinations, product
 
-import kinemap as km
-import kinemap.quasi as kq
 import mpmath
 import numpy as np
 import pytest
+from scipy.spatial import ConvexHull, QhullError
+
+import kinemap as km
+import kinemap.quasi as kq
 from kinemap.model import AtomSource
 from kinemap.quasi.windows import PolygonWindow, PolyhedronWindow, exp_divided_differences
-from scipy.spatial import ConvexHull, QhullError
 
 TAU = (1 + math.sqrt(5)) / 2
 

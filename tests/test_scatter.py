@@ -13,9 +13,9 @@ import time
 import numpy as np
 import periodictable.cromermann as wk
 import pytest
+from conftest import numpy_amplitude
 
 import kinemap as km
-from conftest import numpy_amplitude
 from kinemap import InvalidInputError
 
 TAU = (1 + 5**0.5) / 2

@@ -14,13 +14,12 @@ from itertools import product
 
 import numpy as np
 import pytest
+from test_symmetry_groups import ORDERS, VARIANTS, closure, rodrigues, system_cell
 
 import kinemap as km
 from kinemap.compare import BijvoetAveragingWarning, allowed_reflections, point_group, symmetrize
 from kinemap.errors import InvalidInputError
 from kinemap.model import cell_from_parameters
-
-from test_symmetry_groups import ORDERS, VARIANTS, closure, rodrigues, system_cell
 
 
 # ----------------------------------------------------------------------------- references

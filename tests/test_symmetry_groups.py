@@ -20,7 +20,6 @@ from kinemap.compare import LAUE_CLASSES, POINT_GROUPS, equivalent_reflections, 
 from kinemap.errors import InvalidInputError
 from kinemap.model import cell_from_parameters
 
-
 # Textbook orders of the 32 point groups (ITA Vol. A; memory).
 ORDERS = {
     "1": 1, "-1": 2, "2": 2, "m": 2, "2/m": 4, "222": 4, "mm2": 4, "mmm": 8,
@@ -282,7 +281,7 @@ def test_quasicrystal_group_orders(symbol, order):
         assert np.allclose(r @ r.T, np.eye(3), atol=1e-12)
     assert not g.is_crystallographic
     with pytest.raises(InvalidInputError, match="crystallographic"):
-        g.hkl_operations
+        _ = g.hkl_operations
 
 
 def test_icosahedral_axes_lie_where_kinemap_quasi_puts_them():

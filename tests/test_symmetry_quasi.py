@@ -15,14 +15,12 @@ import math
 import numpy as np
 import pytest
 from scipy.spatial import cKDTree
+from test_symmetry_groups import closure, rodrigues
 
 import kinemap as km
 from kinemap import quasi
 from kinemap.compare import equivalent_reflections, point_group, symmetrize
 from kinemap.errors import InvalidInputError
-
-from test_symmetry_groups import closure, rodrigues
-
 
 TAU = (1 + 5 ** 0.5) / 2
 

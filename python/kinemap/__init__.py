@@ -11,18 +11,25 @@ take s = sinθ/λ = |q|/4π; A(q) = Σ_j o_j f_j(s) T_j exp(+i q·r_j); I = |A|�
 """
 
 from ._core import __version__
+from .compare import BraggExclusion, compare, delta_pdf, open_map, rank_models, symmetrize
 from .errors import InvalidInputError, KinemapError, ModelFileError
+from .frames import FrameAverages, average_frames
+from .geometry import Detector, bin_frames, expected_counts, read_frames
+from .io import open_model, write_h5md
 from .model import AtomSource, Model
 from .pattern import Pattern, load_pattern
+from .powder import (
+    PairDistribution,
+    PowderCautionWarning,
+    PowderPattern,
+    compare_pdf,
+    compare_powder,
+    pair_distribution,
+    powder,
+)
 from .probes import get_probe
 from .qgrid import QGrid
 from .scatter import KinematicApproximationWarning, OffLatticeWarning, scatter
-from .io import open_model, write_h5md
-from .frames import FrameAverages, average_frames
-from .geometry import Detector, bin_frames, expected_counts, read_frames
-from .compare import BraggExclusion, compare, delta_pdf, open_map, rank_models, symmetrize
-from .powder import (PairDistribution, PowderCautionWarning, PowderPattern, compare_pdf, compare_powder,
-                     pair_distribution, powder)
 
 __all__ = [
     "__version__",

@@ -150,7 +150,8 @@ def _per_atom(value, species: np.ndarray, n: int, name: str, default: float) -> 
     if a.ndim == 0:
         return np.full(n, float(a))
     if a.shape != (n,):
-        raise InvalidInputError(f"`{name}` must be a number, a per-species mapping or an array of {n} values, got shape {a.shape}")
+        raise InvalidInputError(
+            f"`{name}` must be a number, a per-species mapping or an array of {n} values, got shape {a.shape}")
     return np.ascontiguousarray(a)
 
 
@@ -293,7 +294,8 @@ class Model:
             labels = set(self.species.tolist())
             for key, v in u_aniso.items():
                 if key not in labels:
-                    raise InvalidInputError(f"`u_aniso` names species {key!r}, which the model does not have (it has {sorted(labels)})")
+                    raise InvalidInputError(
+                        f"`u_aniso` names species {key!r}, which the model does not have (it has {sorted(labels)})")
                 out[self.species == key] = np.asarray(v, dtype=np.float64)
         else:
             u = np.asarray(u_aniso, dtype=np.float64)
@@ -395,11 +397,11 @@ class Model:
         for start in range(0, self.n_atoms, chunk_atoms):
             yield self.subset(slice(start, start + chunk_atoms))
 
-    def subset(self, index) -> "Model":
+    def subset(self, index) -> Model:
         """A new model with the atoms selected by `index` (slice, mask or integer array)."""
         return self._derived(np.ascontiguousarray(self.positions[index]), index)
 
-    def _derived(self, positions: np.ndarray, index=slice(None)) -> "Model":
+    def _derived(self, positions: np.ndarray, index=slice(None)) -> Model:
         m = Model.__new__(Model)
         m.cell, m.box = self.cell, self.box
         m.positions = positions
@@ -412,7 +414,7 @@ class Model:
             m._groups, m._counts = self._groups, self._counts
         return m
 
-    def tiled(self, reps) -> "Model":
+    def tiled(self, reps) -> Model:
         """A supercell: this model (a unit cell with its `cell`) repeated n1 × n2 × n3 times
         along the cell vectors. The result keeps the cell for h, k, l and has box = P·cell.
 
@@ -442,14 +444,14 @@ class Model:
                      b_iso=None if u is not None else np.tile(self.b_iso, k), u_aniso=u,
                      cell=self.cell, supercell=p)
 
-    def moved(self, positions) -> "Model":
+    def moved(self, positions) -> Model:
         """A copy with the same atoms at new Cartesian `positions` (N, 3), Å."""
         p = _as_positions(positions)
         if p.shape != self.positions.shape:
             raise InvalidInputError(f"`positions` must have shape {self.positions.shape}, got {p.shape}")
         return self._derived(np.ascontiguousarray(p))
 
-    def translated(self, shift) -> "Model":
+    def translated(self, shift) -> Model:
         """A copy shifted by the Cartesian vector `shift` (Å)."""
         s = real_array(shift, "shift", shape=(3,))
         return self._derived(self.positions + s)
@@ -493,7 +495,7 @@ class AtomSource(Protocol):
 
     def describe(self) -> dict: ...
 
-    def iter_chunks(self, chunk_atoms: int) -> Iterator["Model"]: ...
+    def iter_chunks(self, chunk_atoms: int) -> Iterator[Model]: ...
 
 
 class AtomSourceBase:
@@ -517,10 +519,10 @@ class AtomSourceBase:
     def species_labels(self) -> list[str]:
         raise NotImplementedError
 
-    def iter_chunks(self, chunk_atoms: int) -> Iterator["Model"]:
+    def iter_chunks(self, chunk_atoms: int) -> Iterator[Model]:
         raise NotImplementedError
 
-    def iter_range(self, start: int, stop: int, chunk_atoms: int) -> Iterator["Model"]:
+    def iter_range(self, start: int, stop: int, chunk_atoms: int) -> Iterator[Model]:
         """The atoms ``start:stop`` as chunks of at most `chunk_atoms` (used by the tasks of a
         cluster run). This default streams from the first atom and keeps what falls in the
         range; readers that can seek (HDF5) read only the range."""
@@ -548,7 +550,7 @@ class AtomSourceBase:
         d.update(self._extra_description())
         return d
 
-    def read(self, max_atoms: int = 50_000_000) -> "Model":
+    def read(self, max_atoms: int = 50_000_000) -> Model:
         """All atoms as one in-memory :class:`Model` (refused above `max_atoms`)."""
         n = self.n_atoms
         if n is not None and n > max_atoms:
@@ -562,7 +564,7 @@ class AtomSourceBase:
         return concatenate(chunks)
 
 
-def concatenate(models) -> "Model":
+def concatenate(models) -> Model:
     """One model holding the atoms of several (cell and box of the first)."""
     models = list(models)
     if not models:

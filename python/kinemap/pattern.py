@@ -71,7 +71,7 @@ class Pattern:
 
     @classmethod
     def from_array(cls, intensity, grid: QGrid, sigma=None, mask=None, *, units: str = "1",
-                   metadata: dict | None = None) -> "Pattern":
+                   metadata: dict | None = None) -> Pattern:
         """A map from arrays, e.g. a measured volume: intensities on `grid` with optional
         standard uncertainties and a mask.
 

@@ -15,8 +15,8 @@ from pathlib import Path
 
 import numpy as np
 
-from .errors import InvalidInputError
 from ._shared.output import atomic_write, check_output
+from .errors import InvalidInputError
 from .pattern import Pattern
 
 SCALES = ("log", "linear")
@@ -53,7 +53,8 @@ def _values(pattern: Pattern, quantity: str) -> tuple[np.ndarray, str]:
     sq = f"{u}²" if u not in ("1", "") else "arb. units"
     if quantity == "intensity":
         kind = pattern.metadata.get("average")
-        name = {"total": "total ⟨|A|²⟩", "bragg": "Bragg |⟨A⟩|²", "diffuse": "diffuse ⟨|A|²⟩ − |⟨A⟩|²"}.get(kind, "intensity |A|²")
+        names = {"total": "total ⟨|A|²⟩", "bragg": "Bragg |⟨A⟩|²", "diffuse": "diffuse ⟨|A|²⟩ − |⟨A⟩|²"}
+        name = names.get(kind, "intensity |A|²")
         return pattern.intensity, f"{name} ({sq})"
     if pattern.amplitude is None:
         raise InvalidInputError(f"`quantity`={quantity!r} needs an amplitude, but this map has only an intensity "

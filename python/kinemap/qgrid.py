@@ -108,7 +108,7 @@ class QGrid:
 
     # ----- constructors -------------------------------------------------------------
     @staticmethod
-    def points(q, *, axes=None) -> "PointGrid":
+    def points(q, *, axes=None) -> PointGrid:
         """Arbitrary q-points: an array of shape (..., 3) in Å⁻¹; the map has shape ``q.shape[:-1]``.
 
         `axes` optionally names the map's axes for plots and files: one (name, values,
@@ -137,7 +137,7 @@ class QGrid:
         return grid
 
     @staticmethod
-    def regular(origin, steps, shape, *, cell=None, kind: str | None = None) -> "RegularGrid":
+    def regular(origin, steps, shape, *, cell=None, kind: str | None = None) -> RegularGrid:
         """A regular grid from its origin (Å⁻¹), one step vector per axis (Å⁻¹) and its shape.
 
         With a `cell` the grid is an hkl grid of that cell (axes in reciprocal-lattice units).
@@ -153,7 +153,7 @@ class QGrid:
         return RegularGrid(kind=kind, shape=shp, cell=c, origin=o, steps=st)
 
     @staticmethod
-    def line(start, stop, n, *, cell=None) -> "RegularGrid":
+    def line(start, stop, n, *, cell=None) -> RegularGrid:
         """`n` points from `start` to `stop` (both included, like numpy.linspace).
 
         Vectors are in Å⁻¹, or in h, k, l of `cell` when one is given.
@@ -164,19 +164,19 @@ class QGrid:
         return QGrid._edges("line", a, [step], (n,), cell)
 
     @staticmethod
-    def plane(origin, u, v, shape, *, cell=None) -> "RegularGrid":
+    def plane(origin, u, v, shape, *, cell=None) -> RegularGrid:
         """Points ``origin + i/(nu−1)·u + j/(nv−1)·v``: `origin` is a corner, `u`, `v` full
         edges (Å⁻¹, or h, k, l of `cell` when one is given)."""
         return QGrid._from_edges("plane", origin, [u, v], shape, ["u", "v"], cell)
 
     @staticmethod
-    def volume(origin, u, v, w, shape, *, cell=None) -> "RegularGrid":
+    def volume(origin, u, v, w, shape, *, cell=None) -> RegularGrid:
         """Points ``origin + i/(nu−1)·u + j/(nv−1)·v + k/(nw−1)·w`` (Å⁻¹, or h, k, l of
         `cell` when one is given)."""
         return QGrid._from_edges("volume", origin, [u, v, w], shape, ["u", "v", "w"], cell)
 
     @staticmethod
-    def _from_edges(kind, origin, edges, shape, names, cell) -> "RegularGrid":
+    def _from_edges(kind, origin, edges, shape, names, cell) -> RegularGrid:
         o = _vec3(origin, "origin")
         e = [_vec3(x, nm) for x, nm in zip(edges, names)]
         try:
@@ -190,7 +190,7 @@ class QGrid:
         return QGrid._edges(kind, o, steps, shp, cell)
 
     @staticmethod
-    def _edges(kind, origin, steps, shape, cell) -> "RegularGrid":
+    def _edges(kind, origin, steps, shape, cell) -> RegularGrid:
         if cell is None:
             return RegularGrid(kind=kind, shape=tuple(shape), origin=origin, steps=np.array(steps).reshape(-1, 3))
         c = as_cell(cell)
@@ -199,7 +199,7 @@ class QGrid:
                            steps=np.array([s @ to_q for s in steps]).reshape(-1, 3))
 
     @staticmethod
-    def hkl(cell, h=0.0, k=0.0, l=0.0) -> "RegularGrid":  # noqa: E741 (the trade's name)
+    def hkl(cell, h=0.0, k=0.0, l=0.0) -> RegularGrid:
         """A grid in reciprocal-lattice units of `cell`: q = 2π(h a* + k b* + l c*).
 
         Each of `h`, `k`, `l` is a single value or a range ``(lo, hi, n)`` (both ends
@@ -231,7 +231,7 @@ class QGrid:
 
     # ----- detectors (built by kinemap.geometry) ---------------------------------------
     @staticmethod
-    def detector(det, *, orientation=None) -> "QGrid":
+    def detector(det, *, orientation=None) -> QGrid:
         """q (sample frame, Å⁻¹) of every pixel centre of one detector frame: a points grid
         of shape (ny, nx), axes "row" and "column"; ``q_sample = Rᵀ k(p̂ − ẑ)`` for a sample
         at orientation R (sample → lab). See :class:`kinemap.Detector`."""
@@ -240,7 +240,7 @@ class QGrid:
         return detector_grid(det, orientation=orientation)
 
     @staticmethod
-    def rotation(det, axis, angles, *, orientation=None) -> "QGrid":
+    def rotation(det, axis, angles, *, orientation=None) -> QGrid:
         """q (sample frame, Å⁻¹) of every pixel of a rotation series about the lab `axis` at
         `angles` (degrees): a points grid of shape (n_frames, ny, nx); frame n has the sample
         at ``Rot(axis, angles[n])·orientation``. See :class:`kinemap.Detector`."""
@@ -422,7 +422,7 @@ class RegularGrid(QGrid):
         vals = np.concatenate([o.reshape(-1)] + [m.reshape(-1) for m in used])
         return bool(np.all(np.abs(vals - np.round(vals)) <= tol))
 
-    def snapped(self, box) -> "RegularGrid":
+    def snapped(self, box) -> RegularGrid:
         """The nearest commensurate grid: the origin moved to the nearest point of the box's
         reciprocal lattice, each step replaced by the nearest nonzero lattice vector along it,
         and the number of points changed so that each edge keeps its length to within one

@@ -367,7 +367,7 @@ def check_workers(client) -> None:
 
     try:
         versions = client.run(probe)
-    except Exception as exc:  # noqa: BLE001 - any failure on a worker is reported as such
+    except Exception as exc:
         raise InvalidInputError(
             f"a Dask worker cannot run kinemap ({type(exc).__name__}: {exc}); install the same kinemap on every "
             "worker, built for (or portable to) the workers' CPUs") from None

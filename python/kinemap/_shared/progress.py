@@ -51,7 +51,7 @@ class Progress:
             self.bar.close()
             self.bar = None
 
-    def __enter__(self) -> "Progress":
+    def __enter__(self) -> Progress:
         return self
 
     def __exit__(self, *exc) -> None:

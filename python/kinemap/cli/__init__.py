@@ -11,8 +11,18 @@ from __future__ import annotations
 import argparse
 import sys
 
-from ._args import (EPILOG_CODES, EXIT_FILE, EXIT_INPUT, EXIT_INTERRUPT, EXIT_OK, EXIT_USAGE, Parser, UsageError,
-                    fix_negative_numbers, one_line)
+from ._args import (
+    EPILOG_CODES,
+    EXIT_FILE,
+    EXIT_INPUT,
+    EXIT_INTERRUPT,
+    EXIT_OK,
+    EXIT_USAGE,
+    Parser,
+    UsageError,
+    fix_negative_numbers,
+    one_line,
+)
 
 
 def build_parser() -> argparse.ArgumentParser:

@@ -99,8 +99,8 @@ def load_geometry(path) -> dict:
         Unknown sections or keys, missing keys, or values the geometry refuses; the message
         names the file, the section and the key.
     """
-    from ..errors import InvalidInputError
     from .._shared.validate import flag, whole_number
+    from ..errors import InvalidInputError
     from ..geometry import Detector
     from ..geometry.orientation import unit_vector
     from ..model import cell_from_parameters
@@ -314,11 +314,10 @@ def _draw(png: Path, frame: np.ndarray, title: str, peaks, marks, overwrite: boo
 
 def run(args) -> int:
     """Handler of ``kinemap frames``: read the geometry, compute, write frames and a PNG."""
+    from .._shared.output import check_output
     from ..geometry import expected_counts, write_frames
     from ..io import open_model
     from ..scatter import KinematicApproximationWarning
-
-    from .._shared.output import check_output
 
     inputs = [args.model, args.geometry]
     out = check_output(args.output, overwrite=args.overwrite, inputs=inputs, what="frames file")

@@ -25,10 +25,10 @@ from .dpdf import DeltaPDF, delta_pdf
 from .figures import DEFINITIONS, Agreement, ShellTable
 from .maps import MapSource
 from .nexus import open_map, read_nxdata
-from .ranking import Ranking, rank_models
 from .output import comparison_figure, plot_comparison, save_comparison
-from .sampling import SAMPLINGS, gaussian_resolution, model_on_grid
 from .pointgroups import LAUE_CLASSES, POINT_GROUPS, QUASICRYSTAL_GROUPS, PointGroup, point_group
+from .ranking import Ranking, rank_models
+from .sampling import SAMPLINGS, gaussian_resolution, model_on_grid
 from .sym_reflections import CENTRING_CONDITIONS, allowed_reflections, equivalent_reflections
 from .symmetry import BijvoetAveragingWarning, symmetrize
 

@@ -35,7 +35,7 @@ _INV_A = {"1/angstrom", "1/a", "1/å", "å⁻¹", "a^-1", "angstrom^-1", "inv-an
 
 def allowed_by_centring(hkl: np.ndarray, centring: str) -> np.ndarray:
     """True for the integer (h, k, l) rows that the lattice centring allows (see the notes)."""
-    h, k, l = (np.asarray(hkl)[..., i] for i in range(3))  # noqa: E741
+    h, k, l = (np.asarray(hkl)[..., i] for i in range(3))
     if centring == "P":
         return np.ones(h.shape, dtype=bool)
     if centring == "A":
@@ -128,7 +128,7 @@ class BraggExclusion:
                                     "an `hkl` list or a `q` list of peak positions")
 
     @classmethod
-    def coerce(cls, value) -> "BraggExclusion | None":
+    def coerce(cls, value) -> BraggExclusion | None:
         """A BraggExclusion from itself, a dict of its fields, or None."""
         if value is None or isinstance(value, BraggExclusion):
             return value

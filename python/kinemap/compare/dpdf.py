@@ -97,7 +97,7 @@ class DeltaPDF:
         """P at the grid point nearest to `uvw`."""
         return float(self.values[self.index_of(uvw)])
 
-    def minus(self, other: "DeltaPDF") -> "DeltaPDF":
+    def minus(self, other: DeltaPDF) -> DeltaPDF:
         """The difference of two ΔPDFs on the same coordinates."""
         if self.values.shape != other.values.shape or not all(np.allclose(a, b) for a, b in zip(self.axes, other.axes)):
             raise InvalidInputError("the two ΔPDF maps are not on the same coordinates")

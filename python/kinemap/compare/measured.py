@@ -17,7 +17,6 @@ from ..qgrid import QGrid
 from .bragg import BraggExclusion, ExclusionTree
 from .maps import ArrayMap, MapSource, SlabMasks, SlabQ, as_map, rows_per_slab, should_stream
 
-
 #: Counted reasons for leaving a point out, in the order they are checked.
 EXCLUSION_REASONS = ("unmeasured", "bad_sigma", "no_model", "user_mask", "bragg")
 
@@ -125,7 +124,7 @@ class Measured:
 def walk(meas: Measured, calc_src, counts: dict | None = None, progress: Progress | None = None):
     """Yield per slab: (a, b, I_o, σ_o, I_c, σ_c, |q|, keep), flattened (σ None when absent)."""
     rows = meas.rows
-    for (a, b, io, so), (a2, b2, ic, sc) in zip(meas.src.slabs(rows), calc_src.slabs(rows)):
+    for (a, b, io, so), (_a2, _b2, ic, sc) in zip(meas.src.slabs(rows), calc_src.slabs(rows)):
         fa = a * meas.per_row
         io = np.ravel(io)
         ic = np.ravel(ic)

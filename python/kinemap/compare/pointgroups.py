@@ -50,8 +50,7 @@ from functools import cache, lru_cache
 import numpy as np
 
 from ..errors import InvalidInputError
-from .sym_symbols import (_VARIANTS, LAUE_CLASSES, POINT_GROUPS, QUASICRYSTAL_GROUPS, TAU, _Reading, _Token,
-                          read_symbol)
+from .sym_symbols import _VARIANTS, LAUE_CLASSES, POINT_GROUPS, QUASICRYSTAL_GROUPS, TAU, _Reading, _Token, read_symbol
 
 _MAX_ORDER = 240
 

@@ -137,7 +137,7 @@ def allowed_reflections(cell, hkl_max=None, *, q_max: float | None = None, centr
     count = int(np.prod(2 * lim + 1, dtype=np.float64))
     check_fits(count * 8 * 3 * 4, f"a list of up to {count:,} reflections", hint="lower `hkl_max` or `q_max`")
     ax = [np.arange(-int(m), int(m) + 1, dtype=np.int64) for m in lim]
-    h, k, l = (x.reshape(-1) for x in np.meshgrid(*ax, indexing="ij"))  # noqa: E741 (the trade's name)
+    h, k, l = (x.reshape(-1) for x in np.meshgrid(*ax, indexing="ij"))
     keep = {
         "P": np.ones(h.shape, dtype=bool),
         "I": (h + k + l) % 2 == 0,

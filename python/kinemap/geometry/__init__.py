@@ -14,8 +14,16 @@ reflections), :mod:`.binning` (frames into hkl maps), :mod:`.images` (frame file
 from .binning import bin_frames
 from .detector import Detector
 from .images import FrameStack, read_frames, write_frames
-from .orientation import (busing_levy_b, check_rotation, crossing_angles, lorentz_factor, orientation_from_ub,
-                          rotation_matrix, tilt_matrix, ub_from_orientation)
+from .orientation import (
+                          busing_levy_b,
+                          check_rotation,
+                          crossing_angles,
+                          lorentz_factor,
+                          orientation_from_ub,
+                          rotation_matrix,
+                          tilt_matrix,
+                          ub_from_orientation,
+)
 from .series import detector_grid, expected_counts, frame_width, predict_reflections, rotation_grid
 
 __all__ = ["Detector", "expected_counts", "predict_reflections", "detector_grid", "rotation_grid", "frame_width",

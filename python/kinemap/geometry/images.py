@@ -78,7 +78,7 @@ class FrameStack:
 
 
 def read_frames(path, *, dataset: str | None = None, angles=None, angles_dataset: str | None = None,
-                format: str | None = None) -> FrameStack:  # noqa: A002 (the natural name)
+                format: str | None = None) -> FrameStack:
     """Open a stack of detector frames.
 
     Parameters

@@ -60,7 +60,7 @@ def detect_format(path) -> str:
         with open_h5(p) as f:  # link names only: nothing is opened through them
             try:
                 names = set(f.keys())
-            except Exception as exc:  # noqa: BLE001 - a damaged root group
+            except Exception as exc:
                 raise ModelFileError(f"{str(p)!r}: cannot list the file's root group: {exc}") from None
             return "h5md" if ("particles" in names or "h5md" in names) else "hdf5"
     name = p.name.lower()

@@ -18,16 +18,16 @@ Options that every reader takes (applied here, once, for all formats):
 
 from __future__ import annotations
 
+from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Iterator
 
 import numpy as np
 
 from ..errors import InvalidInputError, ModelFileError
 from ..model import AtomSourceBase, Groups, Model, as_cell, resolve_box_and_cell
-from ._units import length_scale
 from ._species import LABEL_SCAN_ATOMS, SPECIES_HINT, SpeciesSupply, SpeciesTable, parse_species_map
+from ._units import length_scale
 
 #: Atoms per chunk when a reader is asked without a size (about 50 MB of arrays).
 DEFAULT_READ_ATOMS = 1 << 20
@@ -48,7 +48,7 @@ class ChunkModel(Model):
     @classmethod
     def build(cls, positions: np.ndarray, label_index: np.ndarray, labels: list[str],
               occupancy: np.ndarray | None, b_iso: np.ndarray | None, cell, box=None,
-              u_aniso: np.ndarray | None = None) -> "ChunkModel":
+              u_aniso: np.ndarray | None = None) -> ChunkModel:
         """A chunk from checked arrays: `label_index` indexes `labels`; `u_aniso` (n, 3, 3)
         Cartesian U in Å² replaces B (then `b_iso` must be None)."""
         m = cls.__new__(cls)
@@ -203,7 +203,7 @@ class FileSource(AtomSourceBase):
     _label_cache: list[str] | None = None
 
     # -- options ------------------------------------------------------------------------
-    def _setup(self, opts: SourceOptions) -> "FileSource":
+    def _setup(self, opts: SourceOptions) -> FileSource:
         """Apply the user's options (species, cell, supercell) to this frame."""
         self._opts = opts
         if opts.cell is not None or opts.supercell is not None:
@@ -220,12 +220,12 @@ class FileSource(AtomSourceBase):
             opts.species.check_atoms(self.n_atoms, self.frame, str(self.path))
         return self
 
-    def at_frame(self, frame: int) -> "FileSource":
+    def at_frame(self, frame: int) -> FileSource:
         """A source on another frame of the same file (cheap: shares the file's index and
         the options it was opened with)."""
         return self._at_frame(frame)._setup(self._opts)
 
-    def _at_frame(self, frame: int) -> "FileSource":
+    def _at_frame(self, frame: int) -> FileSource:
         raise NotImplementedError
 
     # -- species ------------------------------------------------------------------------
@@ -406,7 +406,7 @@ class MemorySource(FileSource):
             yield ChunkModel.build(sub.positions, idx, labels, sub.occupancy, None if aniso else sub.b_iso,
                                    self.cell, self.box, u_aniso=sub.u_aniso)
 
-    def _at_frame(self, frame: int) -> "MemorySource":
+    def _at_frame(self, frame: int) -> MemorySource:
         return MemorySource(self.path, self._models, self.format, frame, self._info)
 
     def read(self, max_atoms: int = 50_000_000) -> Model:

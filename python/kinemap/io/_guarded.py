@@ -72,7 +72,7 @@ class GuardedFile(io.RawIOBase):
         n = len(view)
         try:
             data = os.pread(self.fd, n, self.pos) if n else b""
-        except BaseException as exc:  # noqa: BLE001 - recorded and re-raised by the writer
+        except BaseException as exc:
             self._record(exc)
             data = b""
         view[: len(data)] = data
@@ -93,7 +93,7 @@ class GuardedFile(io.RawIOBase):
                 done = 0
                 while done < n:
                     done += os.pwrite(self.fd, view[done:], self.pos + done)
-            except BaseException as exc:  # noqa: BLE001 - recorded and re-raised by the writer
+            except BaseException as exc:
                 self._record(exc)
         if self.failure is not None and self._overlay_bytes + n <= _OVERLAY_LIMIT:
             self._overlay.append((self.pos, bytes(view)))
@@ -106,7 +106,7 @@ class GuardedFile(io.RawIOBase):
         if self.failure is None:
             try:
                 os.ftruncate(self.fd, size)
-            except BaseException as exc:  # noqa: BLE001
+            except BaseException as exc:
                 self._record(exc)
         return size
 

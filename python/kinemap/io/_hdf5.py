@@ -33,7 +33,7 @@ def h5py_module():
     return h5py
 
 
-def open_h5(path) -> "object":
+def open_h5(path) -> object:
     """Open an HDF5 file for reading, turning HDF5's errors into clear ones.
 
     Raises
@@ -55,7 +55,8 @@ def open_h5(path) -> "object":
         return h5py.File(p, "r")
     except OSError as exc:
         msg = str(exc)
-        hint = "truncated or corrupt" if ("truncat" in msg or "signature" in msg or "eof" in msg.lower()) else "not a readable HDF5 file"
+        damaged = "truncat" in msg or "signature" in msg or "eof" in msg.lower()
+        hint = "truncated or corrupt" if damaged else "not a readable HDF5 file"
         raise ModelFileError(f"{str(p)!r} is {hint}: {msg}") from None
 
 
@@ -127,14 +128,14 @@ def check_storage(ds, where: str, allow_external: bool, depth: int = 0) -> None:
         return
     try:
         external = ds.external
-    except Exception:  # noqa: BLE001 - an unreadable creation property list
+    except Exception:
         external = None
     if external:
         files = sorted({str(e[0]) for e in external})
         raise _refuse(where, f"dataset {ds.name} keeps its data in external raw file(s) {files}")
     try:
         virtual = ds.is_virtual
-    except Exception:  # noqa: BLE001
+    except Exception:
         virtual = False
     if virtual:
         sources = ds.virtual_sources()
@@ -169,7 +170,7 @@ def get_checked(f, path: str, where: str, allow_external: bool = False, *, _dept
             return None
         try:
             link = cur.get(name, getlink=True)
-        except Exception as exc:  # noqa: BLE001 - a damaged link table
+        except Exception as exc:
             raise ModelFileError(f"{where}: cannot read the link {walked}/{name}: {exc}") from None
         walked = f"{walked}/{name}"
         if link is None:
@@ -188,7 +189,7 @@ def get_checked(f, path: str, where: str, allow_external: bool = False, *, _dept
             cur = cur[name]
         except KeyError:
             return None  # a dangling link
-        except Exception as exc:  # noqa: BLE001 - HDF5 raises several kinds for damaged objects
+        except Exception as exc:
             raise ModelFileError(f"{where}: cannot open {walked}: {exc}") from None
     if isinstance(cur, h5py.Dataset):
         check_storage(cur, where, allow_external, _depth)
@@ -204,7 +205,7 @@ def read_small(ds, where: str, limit: int = SMALL_DATASET_LIMIT) -> np.ndarray:
                              f"at most {limit:,} from such a dataset")
     try:
         return np.asarray(ds[()])
-    except Exception as exc:  # noqa: BLE001 - truncated or damaged storage
+    except Exception as exc:
         raise ModelFileError(f"{where}: cannot read {ds.name}: {exc}") from None
 
 

@@ -20,8 +20,8 @@ supplies labels a file lacks or overrides the file's own:
 from __future__ import annotations
 
 import os
+from collections.abc import Sequence
 from pathlib import Path
-from typing import Sequence
 
 import numpy as np
 
@@ -211,7 +211,7 @@ class LabelColumn:
         ds = f[self.path]
         try:
             return np.asarray(ds[frame, start:stop] if self.framed else ds[start:stop])
-        except Exception as exc:  # noqa: BLE001 - HDF5 raises several kinds for damaged storage
+        except Exception as exc:
             raise ModelFileError(f"{self.where}: cannot read species of atoms {start}..{stop - 1} (frame {frame}); "
                                  f"the file may be truncated or corrupt: {exc}") from None
 

@@ -47,7 +47,8 @@ def select_frames(frames, n_frames: int, where: str = "the file") -> list[int]:
             try:
                 nums = [int(x) if x.strip() else None for x in parts]
             except ValueError:
-                raise InvalidInputError(f"frame selection {frames!r} must look like start:stop:step with whole numbers") from None
+                raise InvalidInputError(
+                    f"frame selection {frames!r} must look like start:stop:step with whole numbers") from None
             if len(nums) == 3 and nums[2] == 0:
                 raise InvalidInputError(f"frame selection {frames!r}: the step cannot be 0")
             out = list(range(n_frames))[slice(*nums)]
@@ -55,7 +56,8 @@ def select_frames(frames, n_frames: int, where: str = "the file") -> list[int]:
             try:
                 vals = [int(x) for x in text.split(",") if x.strip()]
             except ValueError:
-                raise InvalidInputError(f"frame selection {frames!r} must be 'all', start:stop:step or a list like 0,3,7") from None
+                raise InvalidInputError(
+                    f"frame selection {frames!r} must be 'all', start:stop:step or a list like 0,3,7") from None
             out = _check_list(vals, n_frames, where)
     elif isinstance(frames, (int, np.integer)) and not isinstance(frames, bool):
         out = _check_list([int(frames)], n_frames, where)
@@ -63,7 +65,8 @@ def select_frames(frames, n_frames: int, where: str = "the file") -> list[int]:
         try:
             vals = [int(x) for x in frames]
         except (TypeError, ValueError):
-            raise InvalidInputError(f"`frames` must be None, an int, a slice, a list of ints or text like '0:50:5', got {frames!r}") from None
+            raise InvalidInputError(
+                f"`frames` must be None, an int, a slice, a list of ints or text like '0:50:5', got {frames!r}") from None
         out = _check_list(vals, n_frames, where)
     if not out:
         raise InvalidInputError(f"frame selection {frames!r} selects no frame of {where} ({n_frames} frame(s))")
@@ -213,7 +216,8 @@ def _write_frames(w, base, chosen, srcs, boxes, labels, desc, with_ids, bar) -> 
                 bad = id_sorted[rows_c] != ids
                 if bad.any():
                     j = int(np.flatnonzero(bad)[0])
-                    raise ModelFileError(f"{base.path}: frame {f} has atom id {int(ids[j])}, which frame {chosen[0]} does not have")
+                    raise ModelFileError(
+                        f"{base.path}: frame {f} has atom id {int(ids[j])}, which frame {chosen[0]} does not have")
                 order = np.argsort(rows, kind="stable")
                 rows = rows[order]
             else:

@@ -31,7 +31,6 @@ A(q) except at the box's reciprocal-lattice points.
 
 from __future__ import annotations
 
-
 import numpy as np
 
 from ..errors import ModelFileError
@@ -47,6 +46,7 @@ from ._base import (
 )
 from ._hdf5 import open_h5
 from .h5md_layout import LAYOUT_ERRORS, H5MDIndex
+
 
 class H5MDSource(FileSource):
     """One frame of an H5MD file, read in bounded hyperslabs. Build with :func:`open_h5md`
@@ -72,7 +72,7 @@ class H5MDSource(FileSource):
     def group(self) -> str:
         return self._ix.group
 
-    def _at_frame(self, frame: int) -> "H5MDSource":
+    def _at_frame(self, frame: int) -> H5MDSource:
         return H5MDSource(self._ix, frame)
 
     # -- species -------------------------------------------------------------------

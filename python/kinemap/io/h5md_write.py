@@ -15,8 +15,8 @@ Failures while writing
 
 from __future__ import annotations
 
+from collections.abc import Iterable, Sequence
 from pathlib import Path
-from typing import Iterable, Sequence
 
 import numpy as np
 
@@ -79,9 +79,9 @@ class H5MDWriter:
                  boundary="periodic", time_dependent_box: bool = False,
                  position_dtype=np.float64, author: str = "kinemap user",
                  chunk_atoms: int = 1 << 16, overwrite: bool = False, inputs=()):
-        from .. import __version__
-
         import h5py
+
+        from .. import __version__
 
         if isinstance(n_atoms, bool) or not isinstance(n_atoms, (int, np.integer)) or n_atoms < 0:
             raise InvalidInputError(f"`n_atoms` must be a whole number >= 0, got {n_atoms!r}")
@@ -322,14 +322,14 @@ class H5MDWriter:
         with HeldSignals() as held:
             try:
                 self._close_h5()
-            except BaseException:  # noqa: BLE001 - the file is being thrown away
+            except BaseException:
                 pass
             if getattr(self, "_out", None) is not None:
                 self._out.abort()
             self._closed = True
         held.deliver()
 
-    def __enter__(self) -> "H5MDWriter":
+    def __enter__(self) -> H5MDWriter:
         return self
 
     def __exit__(self, exc_type, exc, tb) -> None:

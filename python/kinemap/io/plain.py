@@ -206,7 +206,7 @@ class PlainSource(FileSource):
         self._file_box = self.box
         self._label_cache = None
 
-    def _at_frame(self, frame: int) -> "PlainSource":
+    def _at_frame(self, frame: int) -> PlainSource:
         return PlainSource(self._ix, frame)
 
     def _read(self, f, p, framed, start, stop, trailing=()):

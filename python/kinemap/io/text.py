@@ -131,7 +131,8 @@ class _XYZIndex(_TextIndex):
             try:
                 n = int(head.split()[0])
             except ValueError:
-                raise self._err(line, f"expected the atom count of frame {len(self.frames)}, got {head[:60].decode(errors='replace')!r}") from None
+                got = head[:60].decode(errors="replace")
+                raise self._err(line, f"expected the atom count of frame {len(self.frames)}, got {got!r}") from None
             if n < 0:
                 raise self._err(line, f"negative atom count {n}")
             comment = fh.readline()
@@ -310,7 +311,8 @@ class _DumpIndex(_TextIndex):
                 fr.scaled = scaled
                 break
         else:
-            raise self._err(line, f"ITEM: ATOMS has no position columns (x y z, xu yu zu, xs ys zs or xsu ysu zsu); it has {names}")
+            raise self._err(line, "ITEM: ATOMS has no position columns (x y z, xu yu zu, xs ys zs or xsu ysu zsu); "
+                                  f"it has {names}")
         if "element" in pos:
             fr.species_col = pos["element"]
         elif "type" in pos:
@@ -335,7 +337,7 @@ class TextSource(FileSource):
         self.box = self._fr.cell
         self._label_cache = None
 
-    def _at_frame(self, frame: int) -> "TextSource":
+    def _at_frame(self, frame: int) -> TextSource:
         return TextSource(self._ix, frame)
 
     def _blocks(self, chunk_atoms, stop: int | None = None):
@@ -371,8 +373,8 @@ class TextSource(FileSource):
                 try:
                     row.astype(np.float64)
                 except ValueError:
-                    raise ModelFileError(f"{self.path}, line {first_line + i}: {what} {[x.decode(errors='replace') for x in row]} "
-                                         "are not numbers") from None
+                    shown = [x.decode(errors="replace") for x in row]
+                    raise ModelFileError(f"{self.path}, line {first_line + i}: {what} {shown} are not numbers") from None
             raise
 
     def _missing_species(self) -> str | None:
@@ -396,7 +398,8 @@ class TextSource(FileSource):
             try:
                 codes = col.astype(np.int64)
             except ValueError:
-                raise ModelFileError(f"{self.path}, frame {self.frame}: species types near line {fr.line + done} are not whole numbers") from None
+                raise ModelFileError(f"{self.path}, frame {self.frame}: species types near line {fr.line + done} "
+                                     "are not whole numbers") from None
             return self._ix.table.label_index(codes, done, self.frame), self._ix.table.distinct
         uniq, inv = np.unique(col, return_inverse=True)
         return inv.reshape(-1), [u.decode("utf-8", "replace") for u in uniq]

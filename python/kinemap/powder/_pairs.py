@@ -388,7 +388,7 @@ def collect(sources: list, frames: list, *, box, r_max: float | None, dr: float,
 def _describe(source) -> dict:
     try:
         d = source.describe()
-    except Exception:  # noqa: BLE001 - a description is informative only
+    except Exception:
         return {}
     return {k: v for k, v in d.items() if k != "species" or len(v) < 50}
 

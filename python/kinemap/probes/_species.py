@@ -17,8 +17,8 @@ cloud (element and charge; an isotope scatters like its element), neutrons see t
 from __future__ import annotations
 
 import re
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
-from typing import Mapping, Sequence
 
 from ..errors import InvalidInputError
 

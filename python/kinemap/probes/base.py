@@ -10,7 +10,8 @@ and a probe supplies f_j(s) only: no Debye–Waller factor T_j and no occupancy 
 
 from __future__ import annotations
 
-from typing import Any, Mapping, Sequence
+from collections.abc import Mapping, Sequence
+from typing import Any
 
 import numpy as np
 
