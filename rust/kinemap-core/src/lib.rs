@@ -20,17 +20,21 @@
 // arrays obscure the vector loops without changing the generated code.
 #![allow(clippy::needless_range_loop)]
 
+pub mod alloc;
 pub mod atoms;
+pub mod dispatch;
 pub mod error;
 pub mod grid;
 pub mod gridded;
 pub mod point;
 pub mod pool;
 pub mod sincos;
+mod simd;
 
 pub use atoms::AtomSet;
 pub use error::{Error, Result};
-pub use grid::grid_amplitudes;
+pub use dispatch::{kernel_level, Level};
+pub use grid::{grid_amplitudes, grid_amplitudes_at};
 pub use gridded::{PointPlan, RegularPlan};
 pub use num_complex::Complex64;
-pub use point::point_amplitudes;
+pub use point::{point_amplitudes, point_amplitudes_at};

@@ -13,6 +13,9 @@
 //! |q·r|·2⁻⁵³, which is of the same size.
 #![allow(clippy::excessive_precision)]
 
+use crate::dispatch::MulAdd;
+use crate::simd::F8;
+
 /// Number of lanes the kernels process together (one AVX-512 register of f64).
 pub const LANES: usize = 8;
 
@@ -26,6 +29,13 @@ const INV_PIO2: f64 = std::f64::consts::FRAC_2_PI;
 // 1.5·2^52: adding and subtracting it rounds to the nearest integer and leaves that integer
 // in the low mantissa bits.
 const ROUNDER: f64 = 6_755_399_441_055_744.0;
+const TWO_M18: f64 = 1.0 / 262_144.0;
+const TWO_P18: f64 = 262_144.0;
+
+/// Largest phase |x| (radians) the kernels accept: below it the reduction above is exact at
+/// every kernel level (the split reduction of the levels without FMA needs |x|·2/π < 2^36,
+/// i.e. |x| < 1.08·10¹¹). Callers bound their phases by max|q|·max|r| and refuse beyond.
+pub const MAX_PHASE: f64 = 1.0e11;
 
 const S1: f64 = -1.666_666_666_666_663_243_48e-01;
 const S2: f64 = 8.333_333_333_322_489_461_24e-03;
@@ -40,40 +50,64 @@ const C4: f64 = -2.755_731_435_139_066_330_35e-07;
 const C5: f64 = 2.087_572_321_298_174_827_90e-09;
 const C6: f64 = -1.135_964_755_778_819_482_65e-11;
 
-/// `a * b + c`, fused where the target has FMA (one rounding, one instruction), otherwise
-/// plain; never the slow software `fma` of targets without it.
+/// `a * b + c`, fused where the build targets FMA (one rounding, one instruction) or the
+/// architecture always has it, otherwise plain; never the slow software `fma` of targets
+/// without it. The dispatched kernels use [`MulAdd`] of their level instead.
 #[inline(always)]
 pub fn mul_add(a: f64, b: f64, c: f64) -> f64 {
-    #[cfg(target_feature = "fma")]
-    {
-        a.mul_add(b, c)
-    }
-    #[cfg(not(target_feature = "fma"))]
-    {
-        a * b + c
-    }
+    crate::dispatch::BaselineMulAdd::mul_add(a, b, c)
 }
 
-/// Sine and cosine of `x`, branch-free. See the module notes for the accuracy.
+/// Sine and cosine of `x`, branch-free, with the build's multiply–add. See the module notes
+/// for the accuracy and the range.
 #[inline(always)]
 pub fn sincos(x: f64) -> (f64, f64) {
-    let t = mul_add(x, INV_PIO2, ROUNDER);
+    sincos_with::<crate::dispatch::BaselineMulAdd>(x)
+}
+
+/// [`sincos`] with the multiply–add of a kernel level (fused or split).
+#[inline(always)]
+pub fn sincos_with<M: MulAdd>(x: f64) -> (f64, f64) {
+    let t = M::mul_add(x, INV_PIO2, ROUNDER);
     let quadrant = t.to_bits();
     let k = t - ROUNDER;
-    let r = mul_add(-k, PIO2_3, mul_add(-k, PIO2_2, mul_add(-k, PIO2_1, x)));
+    let r = if M::FUSED {
+        // With a fused multiply–add, x − k·PIO2_1 is exact for |k| < 2^51 (both are
+        // multiples of 2^-32·ulp-scale and the difference has fewer than 53 bits), and the
+        // later steps round once each: accurate far beyond MAX_PHASE.
+        M::mul_add(-k, PIO2_3, M::mul_add(-k, PIO2_2, M::mul_add(-k, PIO2_1, x)))
+    } else {
+        // Without FMA, k·PIO2_1 is exact only for |k| < 2^20. Split k = kh + kl with kh a
+        // multiple of 2^18 (at most 18 significant bits for |k| < 2^36) and |kl| ≤ 2^17: every
+        // product of a part with a 33-bit piece of π/2 is then exact, and so are the first
+        // three differences (their operands share a grid fine enough; see the module notes).
+        let kh = ((k * TWO_M18 + ROUNDER) - ROUNDER) * TWO_P18;
+        let kl = k - kh;
+        let r = (x - kh * PIO2_1) - kl * PIO2_1;
+        let r = (r - kh * PIO2_2) - kl * PIO2_2;
+        (r - kh * PIO2_3) - kl * PIO2_3
+    };
     let z = r * r;
-    let ps = mul_add(
+    let ps = M::mul_add(
         z,
-        mul_add(z, mul_add(z, mul_add(z, mul_add(z, S6, S5), S4), S3), S2),
+        M::mul_add(
+            z,
+            M::mul_add(z, M::mul_add(z, M::mul_add(z, S6, S5), S4), S3),
+            S2,
+        ),
         S1,
     );
-    let s = mul_add(r * z, ps, r);
-    let pc = mul_add(
+    let s = M::mul_add(r * z, ps, r);
+    let pc = M::mul_add(
         z,
-        mul_add(z, mul_add(z, mul_add(z, mul_add(z, C6, C5), C4), C3), C2),
+        M::mul_add(
+            z,
+            M::mul_add(z, M::mul_add(z, M::mul_add(z, C6, C5), C4), C3),
+            C2,
+        ),
         C1,
     );
-    let c = mul_add(z * z, pc, mul_add(-0.5, z, 1.0));
+    let c = M::mul_add(z * z, pc, M::mul_add(-0.5, z, 1.0));
     // Quadrant n = k mod 4: (sin, cos) = (s, c), (c, −s), (−s, −c), (−c, s).
     let swap = (quadrant & 1).wrapping_neg(); // all ones when n is odd
     let sb = s.to_bits();
@@ -91,11 +125,56 @@ pub fn sincos(x: f64) -> (f64, f64) {
 /// Sine and cosine of [`LANES`] values at once (written so that it becomes vector code).
 #[inline(always)]
 pub fn sincos_lanes(x: &[f64; LANES], s: &mut [f64; LANES], c: &mut [f64; LANES]) {
+    sincos_lanes_with::<crate::dispatch::BaselineMulAdd>(x, s, c)
+}
+
+/// [`sincos_lanes`] with the multiply–add of a kernel level.
+#[inline(always)]
+pub fn sincos_lanes_with<M: MulAdd>(x: &[f64; LANES], s: &mut [f64; LANES], c: &mut [f64; LANES]) {
     for l in 0..LANES {
-        let (a, b) = sincos(x[l]);
+        let (a, b) = sincos_with::<M>(x[l]);
         s[l] = a;
         c[l] = b;
     }
+}
+
+/// [`sincos`] of eight lanes at once with the vector type of a kernel level (the same
+/// operations in the same order as [`sincos_with`], so the same results lane by lane).
+#[inline(always)]
+pub(crate) fn sincos_v<V: F8>(x: V) -> (V, V) {
+    let c = V::splat;
+    let t = x.mul_add(c(INV_PIO2), c(ROUNDER));
+    let k = t.sub(c(ROUNDER));
+    let r = if V::FUSED {
+        k.neg_mul_add(
+            c(PIO2_3),
+            k.neg_mul_add(c(PIO2_2), k.neg_mul_add(c(PIO2_1), x)),
+        )
+    } else {
+        let kh = k.mul(c(TWO_M18)).add(c(ROUNDER)).sub(c(ROUNDER)).mul(c(TWO_P18));
+        let kl = k.sub(kh);
+        let r = x.sub(kh.mul(c(PIO2_1))).sub(kl.mul(c(PIO2_1)));
+        let r = r.sub(kh.mul(c(PIO2_2))).sub(kl.mul(c(PIO2_2)));
+        r.sub(kh.mul(c(PIO2_3))).sub(kl.mul(c(PIO2_3)))
+    };
+    let z = r.mul(r);
+    let ps = z.mul_add(
+        z.mul_add(
+            z.mul_add(z.mul_add(z.mul_add(c(S6), c(S5)), c(S4)), c(S3)),
+            c(S2),
+        ),
+        c(S1),
+    );
+    let sn = r.mul(z).mul_add(ps, r);
+    let pc = z.mul_add(
+        z.mul_add(
+            z.mul_add(z.mul_add(z.mul_add(c(C6), c(C5)), c(C4)), c(C3)),
+            c(C2),
+        ),
+        c(C1),
+    );
+    let cs = z.mul(z).mul_add(pc, c(-0.5).mul_add(z, c(1.0)));
+    V::quadrant(t, sn, cs)
 }
 
 #[cfg(test)]
