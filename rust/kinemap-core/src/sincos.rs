@@ -191,14 +191,6 @@ mod tests {
     use crate::dispatch::{Fused, Split};
     use crate::simd::Lanes;
 
-    /// Error of `got` against the C library's value `want`, in units in the last place of
-    /// `want` (the spacing of doubles at |want|, never below that at 2⁻¹⁰⁰⁰).
-    fn ulps(got: f64, want: f64) -> f64 {
-        let a = want.abs().max(f64::MIN_POSITIVE);
-        let ulp = f64::from_bits(a.to_bits() + 1) - a;
-        (got - want).abs() / ulp
-    }
-
     /// Pseudo-random arguments spread log-uniformly over [2⁻²⁰, 2^e_max], both signs.
     fn arguments(n: usize, e_max: f64, seed: u64) -> Vec<f64> {
         let mut s = seed;
@@ -212,20 +204,6 @@ mod tests {
                 if i % 2 == 0 { x } else { -x }
             })
             .collect()
-    }
-
-    /// Largest error in ulps (of the C library's result) and largest absolute error.
-    fn worst(f: impl Fn(f64) -> (f64, f64), xs: &[f64]) -> (f64, f64) {
-        let (mut u, mut a) = (0.0f64, 0.0f64);
-        for &x in xs {
-            let (s, c) = f(x);
-            // Reference: the C library's sin and cos (glibc: < 1 ulp, with an exact
-            // Payne–Hanek reduction for large arguments).
-            let (s0, c0) = x.sin_cos();
-            u = u.max(ulps(s, s0)).max(ulps(c, c0));
-            a = a.max((s - s0).abs()).max((c - c0).abs());
-        }
-        (u, a)
     }
 
     /// All test arguments: log-uniform over [2⁻²⁰, 1e11], the range near MAX_PHASE, and the

@@ -366,7 +366,7 @@ mod tests {
 
     #[test]
     fn refuses_too_wide_kernels() {
-        let e = Kernel::new(1e-14, 1.25).unwrap_err();
+        let e = Kernel::new(1e-12, 1.2).unwrap_err();
         assert!(e.to_string().contains("kernel of"), "{e}");
     }
 }

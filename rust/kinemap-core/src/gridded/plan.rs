@@ -6,7 +6,7 @@
 //! atom count. `finish(slot)` turns a slot's grid into the group sums
 //! `S_g(q) = Σ_{j in g} w_j exp(i q·r_j)` on the requested q-points and frees the grid.
 
-use super::fft::{centred, fft3, next_smooth};
+use super::fft::{centred, fft3};
 use super::kernel::Kernel;
 use super::spread::{interp, spread, Layout};
 use crate::alloc::{filled, zeroed_complex};
@@ -135,11 +135,7 @@ fn add_batches(
 
 /// How an allocation error names a fine grid: its shape and size.
 fn fine_grid_name(lay: &Layout) -> String {
-    format!(
-        "a fine grid of {:?} points ({})",
-        lay.dims,
-        crate::alloc::human_bytes(16.0 * lay.len() as f64)
-    )
+    format!("a fine grid of {:?} points", lay.dims)
 }
 
 fn grow(slots: &mut Vec<Option<Vec<Complex64>>>, s: usize) {
@@ -192,6 +188,7 @@ impl RegularPlan {
         }
         crate::point::check_vectors(&[origin], "grid origin")?;
         crate::point::check_vectors(steps, "grid step")?;
+        super::sizing::check_tol(tol)?;
         let kernel = Kernel::new(tol, upsample)?;
         let real: Vec<usize> = (0..shape.len()).filter(|&a| shape[a] > 1).collect();
         let place = layout_slots(real.len());
@@ -216,7 +213,7 @@ impl RegularPlan {
                         upsample * n as f64
                     )));
                 }
-                dims[l] = next_smooth(((upsample * n as f64).ceil() as usize).max(2 * kernel.w));
+                dims[l] = super::sizing::fine_size(n, upsample, kernel.w);
                 out_dims[l] = n;
                 lsteps[l] = steps[a];
             }
@@ -403,6 +400,7 @@ impl PointPlan {
             )));
         }
         // Two approximation stages (spreading and interpolation) share the error budget.
+        super::sizing::check_tol(tol)?;
         let kernel = Kernel::new(0.5 * tol, upsample)?;
         let w = kernel.w;
         let (mut qlo, mut qhi) = ([f64::INFINITY; 3], [f64::NEG_INFINITY; 3]);
@@ -429,19 +427,11 @@ impl PointPlan {
             if let Some(i) = p {
                 let a = real[*i];
                 // Margins as in Barnett et al.: the spread support stays inside one period.
-                let nfd = 2.0 * upsample * s[a] * x[a] / PI + (w + 1) as f64;
-                if nfd.is_nan() || nfd >= 1e9 {
-                    return Err(Error::Range(format!(
-                        "q-points span {:.3e} 1/Å and atoms {:.3e} Å along axis {a}: too large for the gridded path",
-                        2.0 * s[a],
-                        2.0 * x[a]
-                    )));
-                }
-                let nf = next_smooth((nfd.ceil() as usize).max(2 * w));
+                let (nf, n2) = super::sizing::point_axis(upsample, w, 2.0 * x[a], 2.0 * s[a])?;
                 let h = 2.0 * PI / nf as f64;
                 let gam = nf as f64 / (2.0 * upsample * s[a]);
                 d1[l] = nf;
-                d2[l] = next_smooth(((upsample * nf as f64).ceil() as usize).max(2 * w));
+                d2[l] = n2;
                 to_grid[l] = 1.0 / (gam * h);
                 gam_h[l] = gam * h;
                 axis[l] = Some(a);
