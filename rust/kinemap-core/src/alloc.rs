@@ -57,8 +57,7 @@ pub fn zeroed_complex(len: usize, what: &str) -> Result<Vec<Complex64>> {
     if len == 0 {
         return Ok(Vec::new());
     }
-    let layout =
-        std::alloc::Layout::array::<Complex64>(len).map_err(|_| refused(what, len, 16))?;
+    let layout = std::alloc::Layout::array::<Complex64>(len).map_err(|_| refused(what, len, 16))?;
     // `vec![zero; len]` would write the zeros itself (Complex64 is not known to be all-zero
     // bits), touching every page up front on one thread.
     // SAFETY: the layout has non-zero size; alloc_zeroed returns memory valid for `len`

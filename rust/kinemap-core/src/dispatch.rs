@@ -112,7 +112,10 @@ fn has_v4() -> bool {
 
 /// The levels this CPU can run, best first (always ends with [`Level::Baseline`]).
 pub fn available_levels() -> Vec<Level> {
-    ALL_LEVELS.into_iter().filter(|l| l.is_available()).collect()
+    ALL_LEVELS
+        .into_iter()
+        .filter(|l| l.is_available())
+        .collect()
 }
 
 /// The best level this CPU can run.

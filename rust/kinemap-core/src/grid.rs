@@ -15,9 +15,9 @@
 
 use crate::atoms::{AtomSet, BLOCK};
 use crate::dispatch::{kernel_level, multiversion, Level};
-use crate::simd::F8;
 use crate::error::{Error, Result};
 use crate::point::{check_factors, check_phase_range, check_vectors, lane_sum};
+use crate::simd::F8;
 use crate::sincos::{sincos_v, LANES};
 use num_complex::Complex64;
 use rayon::prelude::*;
@@ -113,17 +113,7 @@ pub fn grid_amplitudes_at(
                     origin[2] + k0 as f64 * step[2],
                 ];
                 let mut acc = [[[0.0; LANES]; 2]; ANCHOR];
-                segment(
-                    level,
-                    atoms,
-                    e,
-                    q0,
-                    factors,
-                    m,
-                    r * n + k0,
-                    seg,
-                    &mut acc,
-                );
+                segment(level, atoms, e, q0, factors, m, r * n + k0, seg, &mut acc);
             });
     })?;
     Ok(out)
@@ -146,7 +136,10 @@ fn step_factors_k<V: F8>(atoms: &AtomSet, start: usize, step: [f64; 3], e: &mut 
     let (sx, sy, sz) = (V::splat(step[0]), V::splat(step[1]), V::splat(step[2]));
     for (v, ev) in e.chunks_exact_mut(3).enumerate() {
         let j = start / LANES + v;
-        let ph = sz.mul_add(V::load(&zs[j]), sy.mul_add(V::load(&ys[j]), sx.mul(V::load(&xs[j]))));
+        let ph = sz.mul_add(
+            V::load(&zs[j]),
+            sy.mul_add(V::load(&ys[j]), sx.mul(V::load(&xs[j]))),
+        );
         let (s, c) = sincos_v(ph);
         c.store(&mut ev[0]);
         c.add(s).store(&mut ev[1]);

@@ -28,12 +28,12 @@ pub mod grid;
 pub mod gridded;
 pub mod point;
 pub mod pool;
-pub mod sincos;
 mod simd;
+pub mod sincos;
 
 pub use atoms::AtomSet;
-pub use error::{Error, Result};
 pub use dispatch::{kernel_level, Level};
+pub use error::{Error, Result};
 pub use grid::{grid_amplitudes, grid_amplitudes_at};
 pub use gridded::{PointPlan, RegularPlan};
 pub use num_complex::Complex64;

@@ -5,8 +5,8 @@
 //! that stay in cache while a whole q-block passes over them.
 
 use crate::atoms::AtomSet;
-use crate::error::{Error, Result};
 use crate::dispatch::{kernel_level, multiversion, Level};
+use crate::error::{Error, Result};
 use crate::grid::lanes;
 use crate::simd::F8;
 use crate::sincos::{sincos_v, LANES, MAX_PHASE};

@@ -41,6 +41,16 @@ pub(crate) trait F8: Copy {
     fn quadrant(t: Self, s: Self, c: Self) -> (Self, Self);
 }
 
+/// `a·b + c` in scalar code of a kernel level: fused where the level's vectors are.
+#[inline(always)]
+pub(crate) fn fma<V: F8>(a: f64, b: f64, c: f64) -> f64 {
+    if V::FUSED {
+        a.mul_add(b, c)
+    } else {
+        a * b + c
+    }
+}
+
 /// Portable lanes with the multiply–add `M` (vectorised by the compiler).
 #[derive(Clone, Copy)]
 pub(crate) struct Lanes<M>([f64; 8], PhantomData<M>);
@@ -203,7 +213,12 @@ mod x86 {
         }
         #[inline(always)]
         fn load(a: &[f64; 8]) -> Self {
-            unsafe { Avx2(_mm256_loadu_pd(a.as_ptr()), _mm256_loadu_pd(a.as_ptr().add(4))) }
+            unsafe {
+                Avx2(
+                    _mm256_loadu_pd(a.as_ptr()),
+                    _mm256_loadu_pd(a.as_ptr().add(4)),
+                )
+            }
         }
         #[inline(always)]
         fn store(self, a: &mut [f64; 8]) {

@@ -83,7 +83,11 @@ pub fn sincos_with<M: MulAdd>(x: f64) -> (f64, f64) {
         // With a fused multiply–add, x − k·PIO2_1 is exact for |k| < 2^51 (both are
         // multiples of 2^-32·ulp-scale and the difference has fewer than 53 bits), and the
         // later steps round once each: accurate far beyond MAX_PHASE.
-        M::mul_add(-k, PIO2_3, M::mul_add(-k, PIO2_2, M::mul_add(-k, PIO2_1, x)))
+        M::mul_add(
+            -k,
+            PIO2_3,
+            M::mul_add(-k, PIO2_2, M::mul_add(-k, PIO2_1, x)),
+        )
     } else {
         // Without FMA, k·PIO2_1 is exact only for |k| < 2^20. Split k = kh + kl with kh a
         // multiple of 2^18 (at most 18 significant bits for |k| < 2^36) and |kl| ≤ 2^17: every
@@ -159,7 +163,11 @@ pub(crate) fn sincos_v<V: F8>(x: V) -> (V, V) {
             k.neg_mul_add(c(PIO2_2), k.neg_mul_add(c(PIO2_1), x)),
         )
     } else {
-        let kh = k.mul(c(TWO_M18)).add(c(ROUNDER)).sub(c(ROUNDER)).mul(c(TWO_P18));
+        let kh = k
+            .mul(c(TWO_M18))
+            .add(c(ROUNDER))
+            .sub(c(ROUNDER))
+            .mul(c(TWO_P18));
         let kl = k.sub(kh);
         let r = x.sub(kh.mul(c(PIO2_1))).sub(kl.mul(c(PIO2_1)));
         let r = r.sub(kh.mul(c(PIO2_2))).sub(kl.mul(c(PIO2_2)));
@@ -201,7 +209,11 @@ mod tests {
                     .wrapping_add(1442695040888963407);
                 let u = (s >> 11) as f64 / (1u64 << 53) as f64;
                 let x = (2.0f64).powf(-20.0 + u * (e_max + 20.0));
-                if i % 2 == 0 { x } else { -x }
+                if i % 2 == 0 {
+                    x
+                } else {
+                    -x
+                }
             })
             .collect()
     }
@@ -210,13 +222,24 @@ mod tests {
     /// doubles nearest to multiples of π/2 (the hard cases of the reduction).
     fn all_arguments() -> Vec<f64> {
         let mut xs = arguments(100_000, MAX_PHASE.log2(), 1);
-        xs.extend(arguments(20_000, 36.5, 3).iter().map(|x| x.signum() * (MAX_PHASE - x.abs() / 1e3)));
+        xs.extend(
+            arguments(20_000, 36.5, 3)
+                .iter()
+                .map(|x| x.signum() * (MAX_PHASE - x.abs() / 1e3)),
+        );
         xs.extend(
             arguments(50_000, 35.0, 2)
                 .iter()
                 .map(|k| k.round() * std::f64::consts::FRAC_PI_2),
         );
-        xs.extend([0.0, -0.0, 1e-300, std::f64::consts::FRAC_PI_4, MAX_PHASE, -MAX_PHASE]);
+        xs.extend([
+            0.0,
+            -0.0,
+            1e-300,
+            std::f64::consts::FRAC_PI_4,
+            MAX_PHASE,
+            -MAX_PHASE,
+        ]);
         xs
     }
 

@@ -244,10 +244,19 @@ fn impossible_fine_grids_are_errors_not_aborts() {
 
 #[test]
 fn phases_beyond_the_sincos_range_are_refused() {
-    let mut plan = RegularPlan::new([1.0, 0.0, 0.0], &[[0.01, 0.0, 0.0]], &[64], 1e-6, 2.0).unwrap();
-    let e = plan.add(&[[1e18, 0.0, 0.0]], &[1.0], &[0], None).unwrap_err();
-    assert!(e.to_string().contains("1e11 rad"), "{e}");
-    let e = PointPlan::new(&[[1.0, 0.0, 0.0], [2.0, 0.0, 0.0]], [0.0; 3], [1e18, 0.0, 0.0], 1e-6, 2.0)
+    let mut plan =
+        RegularPlan::new([1.0, 0.0, 0.0], &[[0.01, 0.0, 0.0]], &[64], 1e-6, 2.0).unwrap();
+    let e = plan
+        .add(&[[1e18, 0.0, 0.0]], &[1.0], &[0], None)
         .unwrap_err();
+    assert!(e.to_string().contains("1e11 rad"), "{e}");
+    let e = PointPlan::new(
+        &[[1.0, 0.0, 0.0], [2.0, 0.0, 0.0]],
+        [0.0; 3],
+        [1e18, 0.0, 0.0],
+        1e-6,
+        2.0,
+    )
+    .unwrap_err();
     assert!(e.to_string().contains("1e11 rad"), "{e}");
 }

@@ -2,8 +2,8 @@
 
 use kinemap_core::dispatch::available_levels;
 use kinemap_core::{
-    grid_amplitudes, grid_amplitudes_at, point_amplitudes, point_amplitudes_at, AtomSet,
-    Complex64, Error, Level,
+    grid_amplitudes, grid_amplitudes_at, point_amplitudes, point_amplitudes_at, AtomSet, Complex64,
+    Error, Level,
 };
 
 fn rng(seed: u64) -> impl FnMut() -> f64 {
@@ -228,8 +228,8 @@ fn phase_stepping_drift_stays_below_1e_12_at_every_level() {
     let t = long_row();
     let want = reference(&t.pos, &t.w, &[0; 300], &t.q, &t.f);
     for level in available_levels() {
-        let grid = grid_amplitudes_at(level, &t.atoms, &[[0.0; 3]], t.step, 8192, &t.f, None)
-            .unwrap();
+        let grid =
+            grid_amplitudes_at(level, &t.atoms, &[[0.0; 3]], t.step, 8192, &t.f, None).unwrap();
         let point = point_amplitudes_at(level, &t.atoms, &t.q, &t.f, None).unwrap();
         let (eg, ep) = (rel_l2(&grid, &want), rel_l2(&point, &want));
         assert!(eg < 1e-12, "{}: grid drift {eg:e}", level.name());
@@ -266,14 +266,26 @@ fn every_kernel_level_gives_the_same_amplitudes_to_1e_13() {
     let l0 = grid_amplitudes_at(base, &t.atoms, &[[0.0; 3]], t.step, 8192, &t.f, None).unwrap();
     for level in available_levels() {
         for threads in [1, 2] {
-            let g = grid_amplitudes_at(level, &atoms, &rows, step, 500, &fg, Some(threads))
-                .unwrap();
+            let g =
+                grid_amplitudes_at(level, &atoms, &rows, step, 500, &fg, Some(threads)).unwrap();
             let p = point_amplitudes_at(level, &atoms, &qp, fp, Some(threads)).unwrap();
-            let l = grid_amplitudes_at(level, &t.atoms, &[[0.0; 3]], t.step, 8192, &t.f, Some(threads))
-                .unwrap();
+            let l = grid_amplitudes_at(
+                level,
+                &t.atoms,
+                &[[0.0; 3]],
+                t.step,
+                8192,
+                &t.f,
+                Some(threads),
+            )
+            .unwrap();
             let name = level.name();
             assert!(rel_l2(&g, &g0) < 1e-13, "{name} grid {:e}", rel_l2(&g, &g0));
-            assert!(rel_l2(&p, &p0) < 1e-13, "{name} point {:e}", rel_l2(&p, &p0));
+            assert!(
+                rel_l2(&p, &p0) < 1e-13,
+                "{name} point {:e}",
+                rel_l2(&p, &p0)
+            );
             assert!(rel_l2(&l, &l0) < 1e-13, "{name} row {:e}", rel_l2(&l, &l0));
             if threads == 2 {
                 let g1 = grid_amplitudes_at(level, &atoms, &rows, step, 500, &fg, Some(1)).unwrap();
@@ -288,8 +300,13 @@ fn every_kernel_level_gives_the_same_amplitudes_to_1e_13() {
 #[test]
 fn phases_beyond_the_sincos_range_are_refused() {
     // Positions of 1e18 Å (issue 9: they gave intensities of 1e39): refused, naming the bound.
-    let atoms = AtomSet::new(&[[1e18, 0.0, 0.0], [0.0, 0.0, 0.0]], &[1.0, 1.0], &[0, 0], 1)
-        .unwrap();
+    let atoms = AtomSet::new(
+        &[[1e18, 0.0, 0.0], [0.0, 0.0, 0.0]],
+        &[1.0, 1.0],
+        &[0, 0],
+        1,
+    )
+    .unwrap();
     let f = [Complex64::new(1.0, 0.0); 4];
     let e = point_amplitudes(&atoms, &[[1.0, 0.0, 0.0]], &f[..1], None).unwrap_err();
     assert!(matches!(e, Error::Range(_)), "{e}");

@@ -3,8 +3,8 @@
 
 use crate::arrays;
 use crate::errors::{invalid, CoreErr};
-use numpy::{Complex64, IntoPyArray, PyArray1, PyReadonlyArray1, PyReadonlyArray2};
 use kinemap_core::gridded::sizing;
+use numpy::{Complex64, IntoPyArray, PyArray1, PyReadonlyArray1, PyReadonlyArray2};
 use pyo3::prelude::*;
 
 fn vec3(a: &PyReadonlyArray1<'_, f64>, name: &str) -> PyResult<[f64; 3]> {
@@ -249,7 +249,9 @@ pub fn gridded_point_dims_py(
 
 fn check_sizing(upsample: f64, width: usize) -> PyResult<()> {
     if !(upsample.is_finite() && (1.0..=4.0).contains(&upsample)) {
-        return Err(invalid(format!("`upsample` must be in [1, 4], got {upsample}")));
+        return Err(invalid(format!(
+            "`upsample` must be in [1, 4], got {upsample}"
+        )));
     }
     if width == 0 || width > 64 {
         return Err(invalid(format!("`width` must be in 1..=64, got {width}")));

@@ -139,16 +139,16 @@ mod _core {
     #[pymodule_export]
     use super::grid_amplitudes_py;
     #[pymodule_export]
-    use super::gridded::{gridded_kernel_width_py, PyPointPlan, PyRegularPlan};
-    #[pymodule_export]
     use super::gridded::{
         gridded_fine_size_py, gridded_limits_py, gridded_point_dims_py,
         gridded_upsample_choices_py, gridded_usable_py,
     };
     #[pymodule_export]
-    use super::{kernel_level_py, kernel_levels_py, point_amplitudes_py};
+    use super::gridded::{gridded_kernel_width_py, PyPointPlan, PyRegularPlan};
     #[pymodule_export]
     use super::PyAtomSet;
+    #[pymodule_export]
+    use super::{kernel_level_py, kernel_levels_py, point_amplitudes_py};
 
     use pyo3::prelude::*;
 

@@ -10,6 +10,7 @@ use super::fft::{centred, fft3};
 use super::kernel::Kernel;
 use super::spread::{interp, spread, Layout};
 use crate::alloc::{filled, zeroed_complex};
+use crate::dispatch::{kernel_level, Level};
 use crate::error::{Error, Result};
 use crate::sincos::{mul_add, sincos};
 use num_complex::Complex64;
@@ -98,6 +99,7 @@ fn by_slot(slots: &[u32]) -> Vec<(usize, Option<Vec<u32>>)> {
 /// Spread atoms batch by batch into the slots' grids; `prep(j)` gives atom `j`'s grid
 /// coordinates and complex weight.
 fn add_batches(
+    level: Level,
     store: &mut Vec<Option<Vec<Complex64>>>,
     lay: &Layout,
     ker: &Kernel,
@@ -121,12 +123,14 @@ fn add_batches(
             let mut c = filled(k, Complex64::new(0.0, 0.0), "the atoms' spreading weights")?;
             let gc = g.par_iter_mut().zip(c.par_iter_mut()).with_min_len(4096);
             match idx {
-                None => gc.enumerate().for_each(|(i, (g, c))| (*g, *c) = prep(start + i)),
+                None => gc
+                    .enumerate()
+                    .for_each(|(i, (g, c))| (*g, *c) = prep(start + i)),
                 Some(idx) => gc
                     .zip(idx.par_iter())
                     .for_each(|((g, c), &i)| (*g, *c) = prep(start + i as usize)),
             }
-            spread(grid, lay, ker, &g, &c)?;
+            spread(level, grid, lay, ker, &g, &c)?;
         }
         start = end;
     }
@@ -288,6 +292,7 @@ impl RegularPlan {
         threads: Option<usize>,
     ) -> Result<()> {
         check_atoms(positions, weights, slots)?;
+        let level = kernel_level()?;
         let r_max = positions
             .iter()
             .map(|r| r[0] * r[0] + r[1] * r[1] + r[2] * r[2])
@@ -298,7 +303,7 @@ impl RegularPlan {
         let scale: [f64; 3] = lay.dims.map(|n| n as f64 / (2.0 * PI));
         let store = &mut self.slots;
         crate::pool::run(threads, || {
-            add_batches(store, lay, ker, slots, |j| {
+            add_batches(level, store, lay, ker, slots, |j| {
                 let r = positions[j];
                 let mut gp = [0.0; 3];
                 for l in 0..3 {
@@ -488,6 +493,7 @@ impl PointPlan {
         threads: Option<usize>,
     ) -> Result<()> {
         check_atoms(positions, weights, slots)?;
+        let level = kernel_level()?;
         for (j, p) in positions.iter().enumerate() {
             for a in 0..3 {
                 let slack = 1e-9 * (1.0 + (self.hi[a] - self.lo[a]).abs() + self.hi[a].abs());
@@ -503,7 +509,7 @@ impl PointPlan {
         let (axis, cr, cq, tg) = (self.axis, self.centre_r, self.centre_q, self.to_grid);
         let store = &mut self.slots;
         crate::pool::run(threads, || {
-            add_batches(store, lay, ker, slots, |j| {
+            add_batches(level, store, lay, ker, slots, |j| {
                 let r = positions[j];
                 let xr = [r[0] - cr[0], r[1] - cr[1], r[2] - cr[2]];
                 let mut gp = [0.0; 3];
@@ -523,6 +529,7 @@ impl PointPlan {
     /// slot's grid.
     pub fn finish(&mut self, slot: usize, threads: Option<usize>) -> Result<Vec<Complex64>> {
         let m = self.q.len();
+        let level = kernel_level()?;
         let Some(grid1) = self.slots.get_mut(slot).and_then(|g| g.take()) else {
             return filled(m, Complex64::new(0.0, 0.0), "the group sums");
         };
@@ -608,7 +615,7 @@ impl PointPlan {
                     (*p2v, *postv) = (p, Complex64::new(cs * d, sn * d));
                 });
             let mut out = zeroed_complex(m, "the group sums")?;
-            interp(&grid2, lay2, ker, &p2, &mut out)?;
+            interp(level, &grid2, lay2, ker, &p2, &mut out)?;
             out.par_iter_mut()
                 .zip(post.par_iter())
                 .for_each(|(o, f)| *o *= f);

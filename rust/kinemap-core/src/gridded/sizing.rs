@@ -108,6 +108,9 @@ mod tests {
         assert!(!usable(0.9e-12, 2.0, false));
         assert!(!usable(1e-11, 1.5, false) && usable(1e-10, 1.5, false));
         assert!(!usable(1e-9, 1.5, true) && usable(1e-8, 1.5, true));
-        assert!(check_tol(1e-13).unwrap_err().to_string().contains("exact sum"));
+        assert!(check_tol(1e-13)
+            .unwrap_err()
+            .to_string()
+            .contains("exact sum"));
     }
 }

@@ -17,7 +17,9 @@
 
 use super::kernel::{first_point, Kernel, MAX_WIDTH};
 use crate::alloc::filled;
+use crate::dispatch::{multiversion, Level};
 use crate::error::Result;
+use crate::simd::{fma, F8};
 use num_complex::Complex64;
 use rayon::prelude::*;
 
@@ -54,14 +56,14 @@ const BIN2: usize = 16;
 
 /// Per-axis first grid point (wrapped into `0..n`) and kernel values of one point.
 #[inline(always)]
-fn axis_setup(ker: &Kernel, g: f64, n: usize, w: usize, k: &mut [f64; MAX_WIDTH]) -> usize {
+fn axis_setup<V: F8>(ker: &Kernel, g: f64, n: usize, w: usize, k: &mut [f64; MAX_WIDTH]) -> usize {
     if n == 1 {
         *k = [0.0; MAX_WIDTH];
         k[0] = 1.0;
         return 0;
     }
     let (l0, t) = first_point(g, w);
-    ker.eval(t, k);
+    ker.eval_with::<V>(t, k);
     l0.rem_euclid(n as i64) as usize
 }
 
@@ -115,7 +117,7 @@ unsafe impl Sync for GridPtr {}
 /// `grid` must point to `2·lay.len()` valid doubles, and no other thread may access the
 /// points these atoms' kernels cover while this runs.
 #[inline(always)]
-unsafe fn spread_points<const W: usize>(
+unsafe fn spread_points<V: F8, const W: usize>(
     grid: GridPtr,
     lay: &Layout,
     ker: &Kernel,
@@ -129,9 +131,9 @@ unsafe fn spread_points<const W: usize>(
     let mut kc = [0.0f64; 2 * MAX_WIDTH];
     let mut rows = [0usize; MAX_WIDTH];
     for (gp, cj) in g.iter().zip(c) {
-        let i0 = axis_setup(ker, gp[0], n0, w0, &mut k0);
-        let i1 = axis_setup(ker, gp[1], n1, w1, &mut k1);
-        let i2 = axis_setup(ker, gp[2], n2, W, &mut k2);
+        let i0 = axis_setup::<V>(ker, gp[0], n0, w0, &mut k0);
+        let i1 = axis_setup::<V>(ker, gp[1], n1, w1, &mut k1);
+        let i2 = axis_setup::<V>(ker, gp[2], n2, W, &mut k2);
         for i in 0..W {
             kc[2 * i] = cj.re * k2[i];
             kc[2 * i + 1] = cj.im * k2[i];
@@ -159,7 +161,7 @@ unsafe fn spread_points<const W: usize>(
                     // checked above); exclusive access by the caller's contract.
                     let row = unsafe { std::slice::from_raw_parts_mut(grid.0.add(o), 2 * W) };
                     for i in 0..2 * W {
-                        row[i] = crate::sincos::mul_add(f, kc[i], row[i]);
+                        row[i] = fma::<V>(f, kc[i], row[i]);
                     }
                 } else {
                     for i in 0..W {
@@ -171,9 +173,8 @@ unsafe fn spread_points<const W: usize>(
                         debug_assert!(o + 2 <= grid.1);
                         // SAFETY: as above, for one wrapped point.
                         unsafe {
-                            *grid.0.add(o) = crate::sincos::mul_add(f, kc[2 * i], *grid.0.add(o));
-                            *grid.0.add(o + 1) =
-                                crate::sincos::mul_add(f, kc[2 * i + 1], *grid.0.add(o + 1));
+                            *grid.0.add(o) = fma::<V>(f, kc[2 * i], *grid.0.add(o));
+                            *grid.0.add(o + 1) = fma::<V>(f, kc[2 * i + 1], *grid.0.add(o + 1));
                         }
                     }
                 }
@@ -289,33 +290,68 @@ fn sort_points(
 }
 
 macro_rules! dispatch_width {
-    ($w:expr, $f:ident, $($arg:expr),*) => {
+    ($w:expr, $f:ident, $v:ty; $($arg:expr),*) => {
         match $w {
-            1 => $f::<1>($($arg),*),
-            2 => $f::<2>($($arg),*),
-            3 => $f::<3>($($arg),*),
-            4 => $f::<4>($($arg),*),
-            5 => $f::<5>($($arg),*),
-            6 => $f::<6>($($arg),*),
-            7 => $f::<7>($($arg),*),
-            8 => $f::<8>($($arg),*),
-            9 => $f::<9>($($arg),*),
-            10 => $f::<10>($($arg),*),
-            11 => $f::<11>($($arg),*),
-            12 => $f::<12>($($arg),*),
-            13 => $f::<13>($($arg),*),
-            14 => $f::<14>($($arg),*),
-            15 => $f::<15>($($arg),*),
-            16 => $f::<16>($($arg),*),
-            _ => unreachable!("kernel width above MAX_WIDTH"),
+            1 => $f::<$v, 1>($($arg),*),
+            2 => $f::<$v, 2>($($arg),*),
+            3 => $f::<$v, 3>($($arg),*),
+            4 => $f::<$v, 4>($($arg),*),
+            5 => $f::<$v, 5>($($arg),*),
+            6 => $f::<$v, 6>($($arg),*),
+            7 => $f::<$v, 7>($($arg),*),
+            8 => $f::<$v, 8>($($arg),*),
+            9 => $f::<$v, 9>($($arg),*),
+            10 => $f::<$v, 10>($($arg),*),
+            11 => $f::<$v, 11>($($arg),*),
+            12 => $f::<$v, 12>($($arg),*),
+            13 => $f::<$v, 13>($($arg),*),
+            14 => $f::<$v, 14>($($arg),*),
+            15 => $f::<$v, 15>($($arg),*),
+            _ => $f::<$v, 16>($($arg),*),
         }
     };
+}
+
+multiversion!(
+    /// Spread one tile's points (the unit of parallel work) with the kernels of a level.
+    fn spread_tile => spread_tile_k(grid: GridPtr, lay: &Layout, ker: &Kernel, g: &[[f64; 3]], c: &[Complex64])
+);
+
+#[inline(always)]
+fn spread_tile_k<V: F8>(
+    grid: GridPtr,
+    lay: &Layout,
+    ker: &Kernel,
+    g: &[[f64; 3]],
+    c: &[Complex64],
+) {
+    // SAFETY: the caller (`spread`) passes a pointer covering the whole grid and runs tiles
+    // with disjoint footprints concurrently (see the module notes). Widths above 16 never
+    // reach here (Kernel::new refuses them); the last arm only keeps the match total.
+    unsafe { dispatch_width!(lay.widths[2], spread_points, V; grid, lay, ker, g, c) }
+}
+
+multiversion!(
+    /// Interpolate at one chunk of points with the kernels of a level.
+    fn interp_chunk => interp_chunk_k(flat: &[f64], lay: &Layout, ker: &Kernel, g: &[[f64; 3]], out: &mut [Complex64])
+);
+
+#[inline(always)]
+fn interp_chunk_k<V: F8>(
+    flat: &[f64],
+    lay: &Layout,
+    ker: &Kernel,
+    g: &[[f64; 3]],
+    out: &mut [Complex64],
+) {
+    dispatch_width!(lay.widths[2], interp_points, V; flat, lay, ker, g, out)
 }
 
 /// Add the spread of points at grid coordinates `g` with weights `c` to `grid`
 /// (`lay.len()` values, row-major). Runs on the current rayon pool.
 /// Fails only when its temporaries (about 60 bytes per point) cannot be allocated.
 pub fn spread(
+    level: Level,
     grid: &mut [Complex64],
     lay: &Layout,
     ker: &Kernel,
@@ -331,13 +367,12 @@ pub fn spread(
     let (gs, cs, tile_start) = sort_points(lay, g, c, part0, part1)?;
     let flat = as_f64_mut(grid);
     let ptr = GridPtr(flat.as_mut_ptr(), flat.len());
-    let w2 = lay.widths[2];
     let run = |t: usize| {
         let r = tile_start[t]..tile_start[t + 1];
-        // SAFETY: `ptr` covers the whole grid; the tiles of one phase have disjoint
-        // footprints (tile thickness ≥ kernel width, even tile counts), and phases run one
-        // after another, so no grid point is touched by two threads at once.
-        unsafe { dispatch_width!(w2, spread_points, ptr, lay, ker, &gs[r.clone()], &cs[r]) };
+        // `ptr` covers the whole grid; the tiles of one phase have disjoint footprints (tile
+        // thickness ≥ kernel width, even tile counts), and phases run one after another, so
+        // no grid point is touched by two threads at once (the contract of spread_tile).
+        spread_tile(level, ptr, lay, ker, &gs[r.clone()], &cs[r]);
     };
     let (s0n, s1n) = (part0.1, part1.1);
     let p0s: &[usize] = if s0n > 1 { &[0, 1] } else { &[0] };
@@ -366,6 +401,7 @@ pub fn spread(
 /// Points are visited in bin order (for cache reuse on large grids) and the values put back in
 /// input order; each value is summed by one thread in a fixed order.
 pub fn interp(
+    level: Level,
     grid: &[Complex64],
     lay: &Layout,
     ker: &Kernel,
@@ -373,7 +409,6 @@ pub fn interp(
     out: &mut [Complex64],
 ) -> Result<()> {
     let flat = as_f64(grid);
-    let w2 = lay.widths[2];
     let order = bin_order(lay, g)?;
     let mut gs = filled(g.len(), [0.0; 3], "the sorted target coordinates")?;
     gs.par_iter_mut()
@@ -384,7 +419,7 @@ pub fn interp(
     vals.par_chunks_mut(1024)
         .zip(gs.par_chunks(1024))
         .for_each(|(o, gp)| {
-            dispatch_width!(w2, interp_points, flat, lay, ker, gp, o);
+            interp_chunk(level, flat, lay, ker, gp, o);
         });
     for (&j, v) in order.iter().zip(&vals) {
         out[j as usize] = *v;
@@ -432,7 +467,7 @@ fn bin_order(lay: &Layout, g: &[[f64; 3]]) -> Result<Vec<u32>> {
 }
 
 #[inline(always)]
-fn interp_points<const W: usize>(
+fn interp_points<V: F8, const W: usize>(
     flat: &[f64],
     lay: &Layout,
     ker: &Kernel,
@@ -445,9 +480,9 @@ fn interp_points<const W: usize>(
     let mut k2d = [0.0f64; 2 * MAX_WIDTH];
     let plane = 2 * n1 * n2;
     for (gp, o) in g.iter().zip(out.iter_mut()) {
-        let i0 = axis_setup(ker, gp[0], n0, w0, &mut k0);
-        let i1 = axis_setup(ker, gp[1], n1, w1, &mut k1);
-        let i2 = axis_setup(ker, gp[2], n2, W, &mut k2);
+        let i0 = axis_setup::<V>(ker, gp[0], n0, w0, &mut k0);
+        let i1 = axis_setup::<V>(ker, gp[1], n1, w1, &mut k1);
+        let i2 = axis_setup::<V>(ker, gp[2], n2, W, &mut k2);
         for i in 0..W {
             k2d[2 * i] = k2[i];
             k2d[2 * i + 1] = k2[i];
@@ -470,7 +505,7 @@ fn interp_points<const W: usize>(
                 if contiguous {
                     let row = &flat[rb + 2 * i2..rb + 2 * i2 + 2 * W];
                     for i in 0..2 * W {
-                        acc[i] = crate::sincos::mul_add(f * k2d[i], row[i], acc[i]);
+                        acc[i] = fma::<V>(f * k2d[i], row[i], acc[i]);
                     }
                 } else {
                     for i in 0..W {
@@ -479,9 +514,8 @@ fn interp_points<const W: usize>(
                             z -= n2;
                         }
                         let fk = f * k2d[2 * i];
-                        acc[2 * i] = crate::sincos::mul_add(fk, flat[rb + 2 * z], acc[2 * i]);
-                        acc[2 * i + 1] =
-                            crate::sincos::mul_add(fk, flat[rb + 2 * z + 1], acc[2 * i + 1]);
+                        acc[2 * i] = fma::<V>(fk, flat[rb + 2 * z], acc[2 * i]);
+                        acc[2 * i + 1] = fma::<V>(fk, flat[rb + 2 * z + 1], acc[2 * i + 1]);
                     }
                 }
             }
@@ -560,7 +594,7 @@ mod tests {
             let lay = Layout::new(dims, ker.w);
             let (g, c) = points(300, dims, 7);
             let mut grid = vec![Complex64::new(0.0, 0.0); lay.len()];
-            spread(&mut grid, &lay, &ker, &g, &c).unwrap();
+            spread(crate::dispatch::best_level(), &mut grid, &lay, &ker, &g, &c).unwrap();
             let want = direct(&lay, &ker, &g, &c);
             let err = grid
                 .iter()
@@ -573,7 +607,7 @@ mod tests {
                 .map(|i| Complex64::new((i as f64 * 0.37).sin(), (i as f64 * 0.11).cos()))
                 .collect();
             let mut iv = vec![Complex64::new(0.0, 0.0); g.len()];
-            interp(&v, &lay, &ker, &g, &mut iv).unwrap();
+            interp(crate::dispatch::best_level(), &v, &lay, &ker, &g, &mut iv).unwrap();
             let lhs: Complex64 = grid.iter().zip(&v).map(|(a, b)| a * b).sum();
             let rhs: Complex64 = c.iter().zip(&iv).map(|(a, b)| a * b).sum();
             assert!(
@@ -590,9 +624,11 @@ mod tests {
         let (g, c) = points(20_000, lay.dims, 3);
         let run = |t: usize| {
             let mut grid = vec![Complex64::new(0.0, 0.0); lay.len()];
-            crate::pool::run(Some(t), || spread(&mut grid, &lay, &ker, &g, &c))
-                .unwrap()
-                .unwrap();
+            crate::pool::run(Some(t), || {
+                spread(crate::dispatch::best_level(), &mut grid, &lay, &ker, &g, &c)
+            })
+            .unwrap()
+            .unwrap();
             grid
         };
         assert_eq!(run(1), run(2));

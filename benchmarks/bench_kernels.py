@@ -1,0 +1,206 @@
+"""Exact kernels against the hand-written C loops, side by side in one run.
+
+Measures atom–q pairs per second of
+
+* the C reference loops (``poly``: a vectorised polynomial sincos per pair; ``recur``: phase
+  stepping along the line, re-anchored every 64 steps), built and run by the anchors' own
+  ``run.sh`` (directory from ``--anchors DIR`` or the environment variable
+  ``KINEMAP_ANCHORS_DIR``);
+* kinemap through the public API: ``km.scatter(model, QGrid.line(...), method="exact",
+  probe="unit")`` (grid path, phase stepping) and the same q-points as ``QGrid.points``
+  (point path, one sincos per pair);
+* the raw ``kinemap._core`` kernels on the same atoms and q-points (no Python around them);
+
+on the anchors' geometry: N random atoms (weight 1) in a 100 Å box and a line of M q-points
+from the origin along (1, 0.7, 0.4) up to |q| = 8 Å⁻¹ (default N = 2·10⁵, M = 8192), with 1
+and 2 threads. Each kinemap figure is the median of ``--repeats`` runs; the C figures are the
+medians over as many runs of the anchors (each itself a median of 3), interleaved with
+kinemap's, so both see the same machine load. Prints pairs/s and the ratios kinemap / C.
+
+``--native`` also builds a second copy of the extension with ``RUSTFLAGS=-Ctarget-cpu=native``
+into a temporary directory (a few minutes) and times the raw kernels of both builds in
+alternating subprocesses: the portable build (the one installed) against the native one.
+
+Run:  python benchmarks/bench_kernels.py --anchors PATH/TO/anchors [--native] [--repeats 5]
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import shutil
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+ROOT = Path(__file__).resolve().parent.parent
+
+# The raw-kernel timing, run in this process or in a subprocess against another build.
+KERNEL_TIMER = r"""
+import json, statistics, sys, time
+import numpy as np
+from kinemap import _core
+n, m, repeats, threads = (int(a) for a in sys.argv[1:5])
+rng = np.random.default_rng(12345)
+pos = rng.uniform(0.0, 100.0, (n, 3))
+atoms = _core.AtomSet(pos, np.ones(n), np.zeros(n, np.uint32), 1)
+u = np.array([1.0, 0.7, 0.4]) / np.sqrt(1.65)
+step = 8.0 / m * u
+q = np.arange(m)[:, None] * step
+f = np.ones((1, m), np.complex128)
+mp = m // 4  # the point path is ~8x slower: a quarter of the points
+def med(fn, r):
+    ts = []
+    for _ in range(r):
+        t0 = time.perf_counter(); fn(); ts.append(time.perf_counter() - t0)
+    return statistics.median(ts)
+tg = med(lambda: _core.grid_amplitudes(atoms, np.zeros((1, 3)), step, m, f, threads=threads), repeats)
+tp = med(lambda: _core.point_amplitudes(atoms, q[:mp], f[:, :mp], threads=threads), max(1, repeats // 2))
+print(json.dumps({"level": _core.kernel_level(), "grid": n * m / tg, "point": n * mp / tp}))
+"""
+
+
+def cpu_model() -> str:
+    try:
+        out = subprocess.run(["lscpu"], capture_output=True, text=True, check=True).stdout
+        for line in out.splitlines():
+            if line.startswith("Model name:"):
+                return line.split(":", 1)[1].strip()
+    except (OSError, subprocess.CalledProcessError):
+        pass
+    return "unknown"
+
+
+def run_anchors(anchors: Path, n: int, m: int) -> dict:
+    """One run of the anchors' run.sh; returns {(variant, threads): pairs/s} of the line."""
+    env = dict(os.environ, N=str(n), M=str(m), VARIANTS="poly,recur", THREADS="2")
+    out = subprocess.run(["bash", str(anchors / "run.sh")], env=env, capture_output=True,
+                         text=True, check=True).stdout
+    rates = {}
+    for line in out.splitlines():
+        f = line.split()
+        if len(f) >= 9 and f[1] == "line1d" and f[0] in ("poly", "recur"):
+            rates[(f[0], int(f[2]))] = float(f[8]) * 1e9
+    if not rates:
+        raise RuntimeError(f"no line1d rows in the anchors' output:\n{out}")
+    return rates
+
+
+def median_time(fn, repeats: int) -> float:
+    ts = []
+    for _ in range(repeats):
+        t0 = time.perf_counter()
+        fn()
+        ts.append(time.perf_counter() - t0)
+    return statistics.median(ts)
+
+
+def kinemap_rates(n: int, m: int, threads: int, repeats: int) -> dict:
+    """Pairs/s of the public API (grid and point paths) and of the raw kernels."""
+    import kinemap as km
+
+    rng = np.random.default_rng(12345)
+    model = km.Model(rng.uniform(0.0, 100.0, (n, 3)), "C")
+    u = np.array([1.0, 0.7, 0.4]) / np.sqrt(1.65)
+    line = km.QGrid.line([0.0, 0.0, 0.0], (m - 1) * 8.0 / m * u, m)
+    points = km.QGrid.points(line.q_vectors(0, m))
+    run = dict(probe="unit", method="exact", threads=threads)
+    tg = median_time(lambda: km.scatter(model, line, **run), repeats)
+    tp = median_time(lambda: km.scatter(model, points, **run), max(1, repeats // 2))
+    raw = subprocess.run([sys.executable, "-c", KERNEL_TIMER, str(n), str(m), str(repeats),
+                          str(threads)], capture_output=True, text=True, check=True)
+    r = json.loads(raw.stdout)
+    return {"api grid": n * m / tg, "api point": n * m / tp, "raw grid": r["grid"],
+            "raw point": r["point"], "level": r["level"]}
+
+
+def build_native(tmp: Path) -> Path:
+    """Build the extension with -Ctarget-cpu=native and lay out a package copy that uses it."""
+    env = dict(os.environ, RUSTFLAGS="-Ctarget-cpu=native", PYO3_BUILD_EXTENSION_MODULE="1",
+               CARGO_TARGET_DIR=str(tmp / "target"))
+    subprocess.run(["cargo", "build", "--release", "-p", "kinemap-py"], cwd=ROOT, env=env,
+                   check=True, capture_output=True)
+    pkg = tmp / "native" / "kinemap"
+    shutil.copytree(ROOT / "python" / "kinemap", pkg,
+                    ignore=shutil.ignore_patterns("*.so", "__pycache__"))
+    shutil.copy(tmp / "target" / "release" / "libkinemap_py.so", pkg / "_core.abi3.so")
+    return pkg.parent
+
+
+def raw_in(path: Path | None, n: int, m: int, repeats: int, threads: int) -> dict:
+    env = dict(os.environ)
+    if path is not None:
+        env["PYTHONPATH"] = str(path)
+    out = subprocess.run([sys.executable, "-c", KERNEL_TIMER, str(n), str(m), str(repeats),
+                          str(threads)], env=env, capture_output=True, text=True, check=True)
+    return json.loads(out.stdout)
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
+    ap.add_argument("--anchors", default=os.environ.get("KINEMAP_ANCHORS_DIR"),
+                    help="directory of the C reference loops (run.sh); default $KINEMAP_ANCHORS_DIR")
+    ap.add_argument("--atoms", type=int, default=200_000)
+    ap.add_argument("--points", type=int, default=8192)
+    ap.add_argument("--repeats", type=int, default=5)
+    ap.add_argument("--rounds", type=int, default=3, help="interleaved rounds of C and kinemap runs")
+    ap.add_argument("--native", action="store_true", help="also compare with a native build")
+    args = ap.parse_args()
+    n, m = args.atoms, args.points
+    from kinemap import _core
+
+    print(f"# CPU: {cpu_model()}; kernel level {_core.kernel_level()} (available: "
+          f"{', '.join(_core.kernel_levels())}); N = {n} atoms, M = {m} q-points on a line")
+    c_runs: list[dict] = []
+    k_runs: dict[int, list[dict]] = {1: [], 2: []}
+    for r in range(args.rounds):
+        if args.anchors:
+            c_runs.append(run_anchors(Path(args.anchors), n, m))
+        for t in (1, 2):
+            k_runs[t].append(kinemap_rates(n, m, t, args.repeats))
+        print(f"# round {r + 1}/{args.rounds} done", flush=True)
+
+    def med(rows, key):
+        return statistics.median(row[key] for row in rows)
+
+    print(f"\n{'kernel':<28}{'thr':>4}{'pairs/s':>12}{'C pairs/s':>12}{'ratio':>8}")
+    pairs = [("api grid", "recur", "km.scatter line (grid path)"),
+             ("raw grid", "recur", "_core.grid_amplitudes"),
+             ("api point", "poly", "km.scatter points (point path)"),
+             ("raw point", "poly", "_core.point_amplitudes")]
+    for key, cvar, label in pairs:
+        for t in (1, 2):
+            k = med(k_runs[t], key)
+            if c_runs:
+                c = statistics.median(run[(cvar, t)] for run in c_runs)
+                print(f"{label:<28}{t:>4}{k:>12.3e}{c:>12.3e}{k / c:>8.2f}")
+            else:
+                print(f"{label:<28}{t:>4}{k:>12.3e}{'-':>12}{'-':>8}")
+    if not c_runs:
+        print("(no --anchors / KINEMAP_ANCHORS_DIR: C loops not run)")
+
+    if args.native:
+        with tempfile.TemporaryDirectory(prefix="km-native-") as tmp:
+            print("\n# building the native extension (RUSTFLAGS=-Ctarget-cpu=native) ...", flush=True)
+            native = build_native(Path(tmp))
+            print(f"\n{'build':<10}{'thr':>4}{'level':>10}{'grid pairs/s':>15}{'point pairs/s':>15}")
+            for t in (1, 2):
+                port, nat = [], []
+                for _ in range(args.rounds):
+                    port.append(raw_in(None, n, m, args.repeats, t))
+                    nat.append(raw_in(native, n, m, args.repeats, t))
+                for name, rows in (("portable", port), ("native", nat)):
+                    print(f"{name:<10}{t:>4}{rows[0]['level']:>10}{med(rows, 'grid'):>15.3e}"
+                          f"{med(rows, 'point'):>15.3e}")
+                print(f"{'ratio':<10}{t:>4}{'':>10}{med(port, 'grid') / med(nat, 'grid'):>15.2f}"
+                      f"{med(port, 'point') / med(nat, 'point'):>15.2f}")
+
+
+if __name__ == "__main__":
+    main()
