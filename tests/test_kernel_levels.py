@@ -170,3 +170,36 @@ def test_the_tolerance_range_is_the_cores():
     with pytest.raises(InvalidInputError, match="below what the gridded path reaches"):
         km.scatter(model, km.QGrid.line([0, 0, 0], [1, 0, 0], 8), probe="unit",
                    method="gridded", tol=0.5 * min_tol)
+
+
+def test_gridded_path_agrees_across_levels(rng):
+    # The gridded spreading and interpolation run per level too; levels differ only in
+    # rounding, far below the tolerance. Reference: the exact sum in this process.
+    code = """
+        import numpy as np, kinemap as km
+        rng = np.random.default_rng(3)
+        model = km.Model(rng.uniform(0, 30, (2000, 3)), ["Fe"] * 2000)
+        grid = km.QGrid.plane([-2, -2, 0.3], [4, 0, 0], [0, 4, 0], (24, 20))
+        a = km.scatter(model, grid, probe="unit", method="gridded", tol=1e-9).amplitude
+        pts = km.QGrid.points(grid.q_vectors(0, 7 * 17))
+        b = km.scatter(model, pts, probe="unit", method="gridded", tol=1e-9).amplitude
+        import sys
+        sys.stdout.buffer.write(np.concatenate([a.ravel(), b.ravel()]).astype(np.complex128).tobytes())
+    """
+    model = km.Model(np.random.default_rng(3).uniform(0, 30, (2000, 3)), ["Fe"] * 2000)
+    grid = km.QGrid.plane([-2, -2, 0.3], [4, 0, 0], [0, 4, 0], (24, 20))
+    exact = km.scatter(model, grid, probe="unit", method="exact").amplitude.ravel()
+    exact_pts = exact[: 7 * 17]
+    outs = {}
+    for level in LEVELS:
+        full = dict(os.environ, KINEMAP_KERNEL=level,
+                    PYTHONPATH=os.path.dirname(os.path.dirname(km.__file__)))
+        r = subprocess.run([sys.executable, "-c", textwrap.dedent(code)], env=full,
+                           capture_output=True, timeout=120)
+        assert r.returncode == 0, r.stderr.decode()[-2000:]
+        outs[level] = np.frombuffer(r.stdout, dtype=np.complex128)
+        a, b = outs[level][: exact.size], outs[level][exact.size:]
+        assert _rel(a, exact) < 1e-9
+        assert _rel(b, exact_pts) < 1e-9
+    for level in LEVELS:
+        assert _rel(outs[level], outs["baseline"]) < 1e-12
