@@ -3,8 +3,8 @@
 Measures atom–q pairs per second of
 
 * the C reference loops (``poly``: a vectorised polynomial sincos per pair; ``recur``: phase
-  stepping along the line, re-anchored every 64 steps), built and run by the anchors' own
-  ``run.sh`` (directory from ``--anchors DIR`` or the environment variable
+  stepping along the line, re-anchored every 64 steps), compiled once with the flags of the
+  anchors' ``run.sh`` (directory from ``--anchors DIR`` or the environment variable
   ``KINEMAP_ANCHORS_DIR``);
 * kinemap through the public API: ``km.scatter(model, QGrid.line(...), method="exact",
   probe="unit")`` (grid path, phase stepping) and the same q-points as ``QGrid.points``
@@ -13,9 +13,10 @@ Measures atom–q pairs per second of
 
 on the anchors' geometry: N random atoms (weight 1) in a 100 Å box and a line of M q-points
 from the origin along (1, 0.7, 0.4) up to |q| = 8 Å⁻¹ (default N = 2·10⁵, M = 8192), with 1
-and 2 threads. Each kinemap figure is the median of ``--repeats`` runs; the C figures are the
-medians over as many runs of the anchors (each itself a median of 3), interleaved with
-kinemap's, so both see the same machine load. Prints pairs/s and the ratios kinemap / C.
+and 2 threads. Each kinemap figure is the median of ``--repeats`` runs; each C figure the
+median of the C program's 3 runs. C and kinemap run back to back in each of ``--rounds``
+rounds, so both see the same machine load; the ratio printed is the median of the per-round
+ratios (with their range), the rates the medians over rounds.
 
 ``--native`` also builds a second copy of the extension with ``RUSTFLAGS=-Ctarget-cpu=native``
 into a temporary directory (a few minutes) and times the raw kernels of both builds in
@@ -77,18 +78,32 @@ def cpu_model() -> str:
     return "unknown"
 
 
-def run_anchors(anchors: Path, n: int, m: int) -> dict:
-    """One run of the anchors' run.sh; returns {(variant, threads): pairs/s} of the line."""
-    env = dict(os.environ, N=str(n), M=str(m), VARIANTS="poly,recur", THREADS="2")
-    out = subprocess.run(["bash", str(anchors / "run.sh")], env=env, capture_output=True,
-                         text=True, check=True).stdout
+def build_anchors(anchors: Path, tmp: Path) -> Path:
+    """Compile the C loops once, with the compiler flags of the anchors' run.sh."""
+    f = ["-O3", "-march=native", "-mprefer-vector-width=512"]
+    src = anchors / "pair_kernel.c"
+    subprocess.run(["gcc", *f, "-DKNAME=pairs_libm", "-c", str(src), "-o", str(tmp / "l.o")], check=True)
+    subprocess.run(["gcc", *f, "-ffast-math", "-fopenmp-simd", "-fno-builtin-sin", "-fno-builtin-cos",
+                    "-DKNAME=pairs_libmvec", "-c", str(src), "-o", str(tmp / "v.o")], check=True)
+    exe = tmp / "direct_sum"
+    subprocess.run(["gcc", *f, "-fopenmp", "-DU=8", str(anchors / "direct_sum.c"), str(tmp / "l.o"),
+                    str(tmp / "v.o"), "-o", str(exe), "-lmvec", "-lm"], check=True)
+    return exe
+
+
+def run_anchors(exe: Path, n: int, m: int) -> dict:
+    """One run of the C loops on the line (the 3-D grid geometry is cut to one 64-point
+    line); returns {(variant, threads): pairs/s}, each the median of the program's 3 runs."""
+    env = dict(os.environ, OMP_PROC_BIND="spread", OMP_PLACES="cores", OMP_NUM_THREADS="2")
+    out = subprocess.run([str(exe), str(n), "1", "1", "64", str(m), "4.0", "2", "0.5", "poly,recur"],
+                         env=env, capture_output=True, text=True, check=True).stdout
     rates = {}
     for line in out.splitlines():
         f = line.split()
         if len(f) >= 9 and f[1] == "line1d" and f[0] in ("poly", "recur"):
             rates[(f[0], int(f[2]))] = float(f[8]) * 1e9
     if not rates:
-        raise RuntimeError(f"no line1d rows in the anchors' output:\n{out}")
+        raise RuntimeError(f"no line1d rows in the C program's output:\n{out}")
     return rates
 
 
@@ -149,7 +164,7 @@ def main() -> None:
     ap.add_argument("--atoms", type=int, default=200_000)
     ap.add_argument("--points", type=int, default=8192)
     ap.add_argument("--repeats", type=int, default=5)
-    ap.add_argument("--rounds", type=int, default=3, help="interleaved rounds of C and kinemap runs")
+    ap.add_argument("--rounds", type=int, default=5, help="interleaved rounds of C and kinemap runs")
     ap.add_argument("--native", action="store_true", help="also compare with a native build")
     args = ap.parse_args()
     n, m = args.atoms, args.points
@@ -159,17 +174,19 @@ def main() -> None:
           f"{', '.join(_core.kernel_levels())}); N = {n} atoms, M = {m} q-points on a line")
     c_runs: list[dict] = []
     k_runs: dict[int, list[dict]] = {1: [], 2: []}
-    for r in range(args.rounds):
-        if args.anchors:
-            c_runs.append(run_anchors(Path(args.anchors), n, m))
-        for t in (1, 2):
-            k_runs[t].append(kinemap_rates(n, m, t, args.repeats))
-        print(f"# round {r + 1}/{args.rounds} done", flush=True)
+    with tempfile.TemporaryDirectory(prefix="km-anchors-") as tmp:
+        exe = build_anchors(Path(args.anchors), Path(tmp)) if args.anchors else None
+        for r in range(args.rounds):
+            if exe is not None:
+                c_runs.append(run_anchors(exe, n, m))
+            for t in (1, 2):
+                k_runs[t].append(kinemap_rates(n, m, t, args.repeats))
+            print(f"# round {r + 1}/{args.rounds} done", flush=True)
 
     def med(rows, key):
         return statistics.median(row[key] for row in rows)
 
-    print(f"\n{'kernel':<28}{'thr':>4}{'pairs/s':>12}{'C pairs/s':>12}{'ratio':>8}")
+    print(f"\n{'kernel':<32}{'thr':>4}{'pairs/s':>11}{'C pairs/s':>11}{'ratio':>7}{'range':>12}")
     pairs = [("api grid", "recur", "km.scatter line (grid path)"),
              ("raw grid", "recur", "_core.grid_amplitudes"),
              ("api point", "poly", "km.scatter points (point path)"),
@@ -178,10 +195,13 @@ def main() -> None:
         for t in (1, 2):
             k = med(k_runs[t], key)
             if c_runs:
+                # Ratios per round (C and kinemap measured back to back), then their median.
+                ratios = sorted(kr[key] / cr[(cvar, t)] for kr, cr in zip(k_runs[t], c_runs))
                 c = statistics.median(run[(cvar, t)] for run in c_runs)
-                print(f"{label:<28}{t:>4}{k:>12.3e}{c:>12.3e}{k / c:>8.2f}")
+                print(f"{label:<32}{t:>4}{k:>11.3e}{c:>11.3e}{statistics.median(ratios):>7.2f}"
+                      f"{ratios[0]:>6.2f}-{ratios[-1]:<5.2f}")
             else:
-                print(f"{label:<28}{t:>4}{k:>12.3e}{'-':>12}{'-':>8}")
+                print(f"{label:<32}{t:>4}{k:>11.3e}{'-':>11}{'-':>7}")
     if not c_runs:
         print("(no --anchors / KINEMAP_ANCHORS_DIR: C loops not run)")
 

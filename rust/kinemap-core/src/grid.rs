@@ -30,7 +30,8 @@ pub const ANCHOR: usize = 64;
 const VECS_V4: usize = 4;
 const VECS_V3: usize = 2;
 const VECS_BASE: usize = 1;
-const _: () = assert!(BLOCK % (VECS_V4 * LANES) == 0 && BLOCK % (VECS_V3 * LANES) == 0);
+const _: () =
+    assert!(BLOCK.is_multiple_of(VECS_V4 * LANES) && BLOCK.is_multiple_of(VECS_V3 * LANES));
 
 /// Amplitudes on `rows.len()` rows of `n` points each: point `k` of row `r` is
 /// `rows[r] + k·step`. Output and `factors` (per group) are row-major `(rows, n)`.

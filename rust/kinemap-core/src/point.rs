@@ -33,7 +33,7 @@ pub(crate) fn check_vectors(v: &[[f64; 3]], what: &str) -> Result<()> {
 
 /// Check the factor table: row-major `(n_groups, m)`, every value finite.
 pub(crate) fn check_factors(factors: &[Complex64], n_groups: usize, m: usize) -> Result<()> {
-    if factors.len() != n_groups * m {
+    if n_groups.checked_mul(m) != Some(factors.len()) {
         return Err(Error::Shape(format!(
             "factors must have shape (n_groups, n_points) = ({n_groups}, {m}), got {} values",
             factors.len()

@@ -194,6 +194,9 @@ unsafe impl Send for SortPtr {}
 // SAFETY: as above.
 unsafe impl Sync for SortPtr {}
 
+/// Points sorted for spreading: grid coordinates, weights, and the start of every tile's run.
+type Sorted = (Vec<[f64; 3]>, Vec<Complex64>, Vec<usize>);
+
 /// Sort points by tile and bin (stable counting sort); returns the sorted coordinates and
 /// weights and the start of every tile's run (tiles in row-major `(s0, s1)` order).
 fn sort_points(
@@ -202,7 +205,7 @@ fn sort_points(
     c: &[Complex64],
     part0: (usize, usize),
     part1: (usize, usize),
-) -> Result<(Vec<[f64; 3]>, Vec<Complex64>, Vec<usize>)> {
+) -> Result<Sorted> {
     let [n0, n1, n2] = lay.dims;
     let max1 = if part1.1 == 1 {
         n1
