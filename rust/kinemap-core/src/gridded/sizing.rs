@@ -104,6 +104,8 @@ mod tests {
 
     #[test]
     fn the_reachable_range_is_one_rule() {
+        // The documented limits, measured with benchmarks/bench_gridded.py and the tolerance
+        // tests: 1e-12 overall, σ < 2 only down to 1e-10 (regular) and 1e-8 (points).
         assert!(usable(1e-6, 2.0, false) && usable(1e-12, 2.0, false));
         assert!(!usable(0.9e-12, 2.0, false));
         assert!(!usable(1e-11, 1.5, false) && usable(1e-10, 1.5, false));
