@@ -8,9 +8,9 @@
 use crate::error::{Error, Result};
 
 /// Atoms per padded block: groups are padded with zero-weight atoms to a multiple of this, so
-/// the kernels never branch on a remainder. Eight vectors of [`crate::sincos::LANES`] (the
+/// the kernels never branch on a remainder. Four vectors of [`crate::sincos::LANES`] (the
 /// widest interleave of the phase-stepping kernel).
-pub const BLOCK: usize = 8 * crate::sincos::LANES;
+pub const BLOCK: usize = 4 * crate::sincos::LANES;
 
 /// Atom coordinates and weights in structure-of-arrays form, grouped and padded.
 #[derive(Debug, Clone)]

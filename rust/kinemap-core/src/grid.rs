@@ -8,10 +8,12 @@
 //! [`ANCHOR`] points, the unit of parallel work; every q-point is summed by one thread in a
 //! fixed atom order, so results do not depend on the thread count.
 //!
-//! The hot loop keeps [`VECS`] vectors of [`LANES`] atoms in registers and, per step, adds
-//! them to the point's accumulators and advances each by one complex multiply. Its order
-//! matters: summing the vectors into a temporary first (as a C version does) made LLVM spill
-//! the phases to memory and run 15× slower; the code of every level was checked with objdump.
+//! The hot loop keeps 4 (AVX-512), 2 (AVX2) or 1 (baseline) vectors of [`LANES`] atoms in
+//! registers and, per step, adds them to the point's accumulators and advances each by a
+//! three-multiply complex product (see `stepping_run`). It is written with the explicit
+//! vector types of `simd.rs`: written as loops over lane arrays, LLVM once spilled the
+//! phases to memory (15× slower) and once vectorised across the interleaved vectors
+//! (gathers and scatters, 10× slower). The code of every level was checked with objdump.
 
 use crate::atoms::{AtomSet, BLOCK};
 use crate::dispatch::{kernel_level, multiversion, Level};
