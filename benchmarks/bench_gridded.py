@@ -30,7 +30,7 @@ import time
 import numpy as np
 
 import kinemap as km
-from kinemap import gridded
+from kinemap._engine import gridded
 
 DENSITY = 0.1  # atoms per Å³
 QMAX = 4.0  # Å⁻¹, half-width of the regular grids

@@ -26,6 +26,7 @@ def point_amplitudes(
     factors: npt.NDArray[np.complex128],
     *,
     threads: int | None = None,
+    kernel: str | None = None,
 ) -> npt.NDArray[np.complex128]: ...
 def grid_amplitudes(
     atoms: AtomSet,
@@ -35,7 +36,12 @@ def grid_amplitudes(
     factors: npt.NDArray[np.complex128],
     *,
     threads: int | None = None,
+    kernel: str | None = None,
 ) -> npt.NDArray[np.complex128]: ...
+def kernel_level() -> str:
+    """The kernel level in use: "avx512", "avx2" or "baseline" (KINEMAP_KERNEL or the CPU's best)."""
+def kernel_levels() -> list[str]:
+    """The kernel levels this CPU can run, best first."""
 
 class RegularPlan:
     """Gridded (spreading + FFT) plan for a regular grid; one fine grid per slot (group)."""
@@ -91,7 +97,18 @@ class PointPlan:
     ) -> None: ...
     def finish(self, slot: int, *, threads: int | None = None) -> npt.NDArray[np.complex128]: ...
 
-def gridded_kernel_width(tol: float, upsample: float) -> int: ...
+def gridded_kernel_width(tol: float, upsample: float, *, points: bool = False) -> int: ...
+def gridded_limits() -> tuple[float, int]:
+    """(min_tol, max_width): the tightest tolerance and widest kernel of the gridded path."""
+def gridded_upsample_choices(points: bool = False) -> list[float]: ...
+def gridded_usable(tol: float, upsample: float, *, points: bool = False) -> bool: ...
+def gridded_fine_size(n: int, upsample: float, width: int) -> int: ...
+def gridded_point_dims(
+    upsample: float,
+    width: int,
+    extent: list[float],
+    qrange: list[float],
+) -> tuple[list[int], list[int]]: ...
 
 class PairHistogram:
     """Weighted pair-distance histograms per unordered group pair on nodes k·dr (Å)."""

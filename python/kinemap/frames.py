@@ -39,6 +39,7 @@ from pathlib import Path
 
 import numpy as np
 
+from . import _core
 from ._engine import amplitudes
 from ._shared.output import check_output
 from ._shared.progress import Progress, check_progress
@@ -453,6 +454,7 @@ def average_frames(model, grid: QGrid, *, frames=None, split: str = "frames", pr
         "n_frames_averaged": n,
         "split": split,
         "drift_removed": drifts if remove_drift else "not removed",
+        "kernel_level": _core.kernel_level(),
     }
     if model_desc.get("file"):
         base_meta["input_file"] = model_desc["file"]

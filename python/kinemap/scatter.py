@@ -196,6 +196,7 @@ def scatter(model, grid, *, probe="xray", method: str = "auto", tol: float = 1e-
         "run": run or {"cluster": "this process"},
         "created": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
         "kinemap_version": _core.__version__,
+        "kernel_level": _core.kernel_level(),
         "conventions": "A(q) = sum_j o_j f_j(s) T_j exp(+i q.r_j); q in 1/angstrom; s = |q|/(4 pi)",
     }
     return Pattern(grid=grid, amplitude=amplitude, metadata=meta, units=probe.units)

@@ -45,17 +45,16 @@ from ..qgrid import QGrid
 from .factors import FactorTables
 
 #: Oversampling factors σ the planner considers for regular grids (fine grid = σ × output
-#: grid per axis): larger σ needs a narrower kernel (cheaper spreading) but a larger FFT.
-#: Each was checked to meet the tolerance for 1e-3 … 1e-12, σ < 2 only down to 1e-10
-#: (σ = 1.75, 2.5 and 3 were not reliable with the width rules and are left out).
-UPSAMPLE_CHOICES = (2.25, 2.0, 1.5, 1.25)
-#: The same for arbitrary q-points (two approximation stages; σ < 2 only for tol ≥ 1e-8).
-UPSAMPLE_CHOICES_POINTS = (2.0, 1.5, 1.25)
-#: Widest kernel the core supports (grid points per axis).
-MAX_WIDTH = 16
-#: Tightest tolerance the gridded path accepts: rounding in the FFTs and deconvolutions puts
-#: a floor near 1e-13 under the achieved relative error, so tighter requests go to the exact sum.
-MIN_TOL = 1e-12
+#: grid per axis), largest first: larger σ needs a narrower kernel (cheaper spreading) but a
+#: larger FFT. The core owns the list and which tolerances each σ reaches
+#: (``_core.gridded_usable``).
+UPSAMPLE_CHOICES = tuple(_core.gridded_upsample_choices(False))
+#: The same for arbitrary q-points (two approximation stages).
+UPSAMPLE_CHOICES_POINTS = tuple(_core.gridded_upsample_choices(True))
+#: Tightest tolerance the gridded path accepts (rounding in the FFTs and deconvolutions puts a
+#: floor near 1e-13 under the achieved error) and the widest kernel the core supports, both
+#: from the core.
+MIN_TOL, MAX_WIDTH = _core.gridded_limits()
 
 # Cost model (seconds per unit on one core of the reference machine, Zen 5 with AVX-512,
 # fitted to timings of benchmarks/bench_gridded.py: 10⁵–10⁶ atoms into 64³–128³ at 1e-6 and
@@ -76,24 +75,12 @@ ASSUMED_DENSITY = 0.1
 _BLOCK_Q = 1 << 20  # q-points per block when combining group sums with form factors
 
 
-def _smooth(n: int) -> int:
-    """Even 2,3,5-smooth size ≥ n, skipping multiples of 64 above 128 (as the core does)."""
-    m = max(2, int(n) + (int(n) & 1))
-    while True:
-        r = m
-        for p in (2, 3, 5):
-            while r % p == 0:
-                r //= p
-        if r == 1 and (m <= 128 or m % 64):
-            return m
-        m += 2
-
-
-def _width(tol: float, sigma: float, stages: int = 1) -> int:
-    """Kernel width for `tol`; `stages` approximation steps share the error budget."""
-    if tol < MIN_TOL:
-        return MAX_WIDTH + 1  # unreachable: treated like a too-wide kernel
-    return int(_core.gridded_kernel_width(float(tol) / stages, float(sigma)))
+def _width(tol: float, sigma: float, points: bool = False) -> int | None:
+    """Kernel width for `tol` at `sigma`, or None when the core says the gridded path does not
+    reach `tol` there (tolerance floor, kernel width, σ < 2 limits)."""
+    if not _core.gridded_usable(float(tol), float(sigma), points=points):
+        return None
+    return int(_core.gridded_kernel_width(float(tol), float(sigma), points=points))
 
 
 def _regular_axes(grid: QGrid) -> list[int]:
@@ -110,38 +97,28 @@ def regular_estimate(n_atoms: int, grid: QGrid, tol: float, sigma: float):
     """Estimated (seconds, bytes per group grid) of the gridded path on a regular grid, or
     None when the kernel for `tol` at `sigma` is too wide."""
     w = _width(tol, sigma)
-    if w > MAX_WIDTH or (sigma < 2.0 and tol < 1e-10):
-        # At σ = 1.5 and tol 1e-12 the achieved error reached 1.2·tol on 64³ and 128³ grids
-        # (the wide kernel's deconvolution amplifies rounding); below 1e-10 only σ ≥ 2 is used.
+    if w is None:
         return None
     axes = _regular_axes(grid)
-    dims = [_smooth(max(math.ceil(sigma * n), 2 * w)) for n in axes]
+    dims = [_core.gridded_fine_size(int(n), float(sigma), w) for n in axes]
     d = len(axes)
     v = float(np.prod(dims)) if dims else 1.0
     t = n_atoms * (w**d * _T_SPREAD * _big_grid(v) + _T_ATOM) + v * _T_GRID + grid.size * _T_POINT
     return t, 16 * int(np.prod(dims, dtype=np.int64))
 
 
-def _point_dims(sigma: float, w: int, extent, qrange):
-    d1, d2 = [], []
-    for x, s in zip(extent, qrange):
-        if x > 0 and s > 0:
-            nf = _smooth(max(math.ceil(2.0 * sigma * (s / 2) * (x / 2) / math.pi + w + 1), 2 * w))
-            d1.append(nf)
-            d2.append(_smooth(max(math.ceil(sigma * nf), 2 * w)))
-    return d1, d2
-
-
 def point_estimate(n_atoms: int, n_points: int, extent, qrange, tol: float, sigma: float):
     """Estimated (seconds, bytes per group grid, bytes of the interpolation grid) of the type-3
     path for atoms spanning `extent` (Å, per axis) and q-points spanning `qrange` (Å⁻¹), or
     None when the kernel is too wide."""
-    w = _width(tol, sigma, stages=2)  # spreading and interpolation (as in the core)
-    if w > MAX_WIDTH or (sigma < 2.0 and tol < 1e-8):
-        # Below 1e-8 the small oversampling factors amplify rounding in the two
-        # deconvolutions beyond the tolerance (measured); only σ = 2 is used there.
+    w = _width(tol, sigma, points=True)  # spreading and interpolation share the budget
+    if w is None:
         return None
-    d1, d2 = _point_dims(sigma, w, extent, qrange)
+    try:
+        d1, d2 = _core.gridded_point_dims(float(sigma), w, [float(x) for x in extent],
+                                          [float(s) for s in qrange])
+    except InvalidInputError:  # a fine grid beyond the core's limits: not an option
+        return None
     d = len(d1)
     v1 = float(np.prod(d1)) if d1 else 1.0
     v2 = float(np.prod(d2)) if d2 else 1.0

@@ -8,7 +8,8 @@
 use crate::error::{Error, Result};
 
 /// Atoms per padded block: groups are padded with zero-weight atoms to a multiple of this, so
-/// the kernels never branch on a remainder. Four vectors of [`crate::sincos::LANES`].
+/// the kernels never branch on a remainder. Four vectors of [`crate::sincos::LANES`] (the
+/// widest interleave of the phase-stepping kernel).
 pub const BLOCK: usize = 4 * crate::sincos::LANES;
 
 /// Atom coordinates and weights in structure-of-arrays form, grouped and padded.
@@ -22,6 +23,8 @@ pub struct AtomSet {
     /// [`BLOCK`].
     pub(crate) offsets: Vec<usize>,
     n_atoms: usize,
+    /// Largest distance of an atom from the origin, Å (bounds the phases q·r).
+    max_norm: f64,
 }
 
 impl AtomSet {
@@ -52,7 +55,8 @@ impl AtomSet {
         if n_groups == 0 {
             return Err(Error::Range("n_groups must be at least 1".into()));
         }
-        let mut counts = vec![0usize; n_groups];
+        let mut counts = crate::alloc::filled(n_groups, 0usize, "group counts")?;
+        let mut max_norm2 = 0.0f64;
         for (j, (p, (&w, &g))) in positions.iter().zip(weights.iter().zip(groups)).enumerate() {
             if !(p[0].is_finite() && p[1].is_finite() && p[2].is_finite()) {
                 return Err(Error::NonFinite(format!(
@@ -72,21 +76,24 @@ impl AtomSet {
                 )));
             }
             counts[gi] += 1;
+            max_norm2 = max_norm2.max(p[0] * p[0] + p[1] * p[1] + p[2] * p[2]);
         }
-        let mut offsets = Vec::with_capacity(n_groups + 1);
+        let mut offsets = crate::alloc::with_capacity(n_groups + 1, "group offsets")?;
         offsets.push(0usize);
         for &c in &counts {
             let padded = c.div_ceil(BLOCK) * BLOCK;
             offsets.push(offsets.last().copied().unwrap_or(0) + padded);
         }
         let total = offsets[n_groups];
+        let arr = |what| crate::alloc::filled(total, 0.0f64, what);
         let (mut x, mut y, mut z, mut wv) = (
-            vec![0.0; total],
-            vec![0.0; total],
-            vec![0.0; total],
-            vec![0.0; total],
+            arr("atom x coordinates")?,
+            arr("atom y coordinates")?,
+            arr("atom z coordinates")?,
+            arr("atom weights")?,
         );
-        let mut next: Vec<usize> = offsets[..n_groups].to_vec();
+        let mut next = counts;
+        next.copy_from_slice(&offsets[..n_groups]);
         for (p, (&w, &g)) in positions.iter().zip(weights.iter().zip(groups)) {
             let slot = &mut next[g as usize];
             x[*slot] = p[0];
@@ -102,7 +109,13 @@ impl AtomSet {
             w: wv,
             offsets,
             n_atoms: n,
+            max_norm: max_norm2.sqrt(),
         })
+    }
+
+    /// Largest distance of an atom from the origin (Å).
+    pub fn max_norm(&self) -> f64 {
+        self.max_norm
     }
 
     /// Number of real (unpadded) atoms.

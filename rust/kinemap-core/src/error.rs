@@ -14,14 +14,21 @@ pub enum Error {
     Range(String),
     /// The thread pool could not be built.
     Threads(String),
+    /// The requested kernel level (`KINEMAP_KERNEL`) is unknown or not supported by this CPU.
+    Kernel(String),
+    /// A large allocation (fine grid, output, atom arrays) failed; the message gives its size.
+    Memory(String),
 }
 
 impl fmt::Display for Error {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         match self {
-            Error::Shape(m) | Error::NonFinite(m) | Error::Range(m) | Error::Threads(m) => {
-                f.write_str(m)
-            }
+            Error::Shape(m)
+            | Error::NonFinite(m)
+            | Error::Range(m)
+            | Error::Threads(m)
+            | Error::Kernel(m)
+            | Error::Memory(m) => f.write_str(m),
         }
     }
 }

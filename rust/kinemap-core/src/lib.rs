@@ -14,25 +14,35 @@
 //!
 //! Both parallelise over q-points with rayon, so every amplitude is summed by one thread in a
 //! fixed order and results are identical for any thread count. Memory is O(atoms + outputs);
-//! no atoms × q matrix is ever formed.
+//! no atoms × q matrix is ever formed, and every large allocation fails as
+//! [`Error::Memory`] rather than aborting ([`alloc`]).
+//!
+//! One build serves every CPU of its architecture: the kernels are compiled per instruction
+//! set (AVX-512, AVX2+FMA, baseline) and the best level is chosen at run time
+//! ([`dispatch`]; `KINEMAP_KERNEL` forces one). Phases q·r are bounded by
+//! [`sincos::MAX_PHASE`]; calls that could exceed it are refused.
 #![deny(missing_docs)]
 // The kernels index several lane arrays with one counter; iterator chains over four or more
 // arrays obscure the vector loops without changing the generated code.
 #![allow(clippy::needless_range_loop)]
 
+pub mod alloc;
 pub mod atoms;
+pub mod dispatch;
 pub mod error;
 pub mod grid;
 pub mod gridded;
 pub mod pairs;
 pub mod point;
 pub mod pool;
+mod simd;
 pub mod sincos;
 
 pub use atoms::AtomSet;
+pub use dispatch::{kernel_level, Level};
 pub use error::{Error, Result};
-pub use grid::grid_amplitudes;
+pub use grid::{grid_amplitudes, grid_amplitudes_at};
 pub use gridded::{PointPlan, RegularPlan};
 pub use num_complex::Complex64;
 pub use pairs::{debye_sums, PairHistogram};
-pub use point::point_amplitudes;
+pub use point::{point_amplitudes, point_amplitudes_at};

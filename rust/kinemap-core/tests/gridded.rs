@@ -219,3 +219,44 @@ fn bad_input_is_refused() {
     let e = p.add(&[[0.5, 0.5, 2.0]], &[1.0], &[0], None).unwrap_err();
     assert!(e.to_string().contains("outside the bounds"), "{e}");
 }
+
+#[test]
+fn impossible_fine_grids_are_errors_not_aborts() {
+    // Issue 9: a 300000 × 300000 plane needs a 600000² fine grid (5.2 TiB); its allocation
+    // must fail as an error naming the grid, not abort the process.
+    let mut plan = RegularPlan::new(
+        [0.0; 3],
+        &[[1e-6, 0.0, 0.0], [0.0, 1e-6, 0.0]],
+        &[300_000, 300_000],
+        1e-6,
+        2.0,
+    )
+    .unwrap();
+    let e = plan
+        .add(&[[1.0, 2.0, 3.0]], &[1.0], &[0], None)
+        .unwrap_err();
+    assert!(matches!(e, kinemap_core::Error::Memory(_)), "{e}");
+    assert!(e.to_string().contains("fine grid"), "{e}");
+    // Axes beyond the per-axis limit are refused when planning.
+    let e = RegularPlan::new([0.0; 3], &[[1e-9, 0.0, 0.0]], &[1 << 62], 1e-6, 2.0).unwrap_err();
+    assert!(e.to_string().contains("points per axis"), "{e}");
+}
+
+#[test]
+fn phases_beyond_the_sincos_range_are_refused() {
+    let mut plan =
+        RegularPlan::new([1.0, 0.0, 0.0], &[[0.01, 0.0, 0.0]], &[64], 1e-6, 2.0).unwrap();
+    let e = plan
+        .add(&[[1e18, 0.0, 0.0]], &[1.0], &[0], None)
+        .unwrap_err();
+    assert!(e.to_string().contains("1e11 rad"), "{e}");
+    let e = PointPlan::new(
+        &[[1.0, 0.0, 0.0], [2.0, 0.0, 0.0]],
+        [0.0; 3],
+        [1e18, 0.0, 0.0],
+        1e-6,
+        2.0,
+    )
+    .unwrap_err();
+    assert!(e.to_string().contains("1e11 rad"), "{e}");
+}

@@ -1,6 +1,10 @@
 //! Cross-module checks of the exact kernels against analytic results.
 
-use kinemap_core::{grid_amplitudes, point_amplitudes, AtomSet, Complex64, Error};
+use kinemap_core::dispatch::available_levels;
+use kinemap_core::{
+    grid_amplitudes, grid_amplitudes_at, point_amplitudes, point_amplitudes_at, AtomSet, Complex64,
+    Error, Level,
+};
 
 fn rng(seed: u64) -> impl FnMut() -> f64 {
     let mut s = seed;
@@ -175,4 +179,153 @@ fn bad_inputs_are_errors_not_panics() {
     assert!(matches!(e, Error::Range(_)));
     let e = point_amplitudes(&atoms, &[[0.0; 3]], &f, Some(0)).unwrap_err();
     assert!(matches!(e, Error::Range(_)));
+}
+
+/// Relative l2 error ‖a − b‖ / ‖b‖.
+fn rel_l2(a: &[Complex64], b: &[Complex64]) -> f64 {
+    let num: f64 = a.iter().zip(b).map(|(x, y)| (x - y).norm_sqr()).sum();
+    let den: f64 = b.iter().map(|y| y.norm_sqr()).sum();
+    (num / den).sqrt()
+}
+
+/// 300 atoms in a 100 Å box and a row of 8192 points from the origin to |q| = 8 Å⁻¹ along
+/// (1, 0.7, 0.4): phases up to ~1.2·10³ rad, 128 anchors of the recurrence per row.
+struct LongRow {
+    pos: Vec<[f64; 3]>,
+    w: Vec<f64>,
+    atoms: AtomSet,
+    step: [f64; 3],
+    q: Vec<[f64; 3]>,
+    f: Vec<Complex64>,
+}
+
+fn long_row() -> LongRow {
+    let mut r = rng(21);
+    let pos: Vec<[f64; 3]> = (0..300)
+        .map(|_| [100.0 * r(), 100.0 * r(), 100.0 * r()])
+        .collect();
+    let w: Vec<f64> = (0..300).map(|_| 0.5 + r()).collect();
+    let atoms = AtomSet::new(&pos, &w, &[0; 300], 1).unwrap();
+    let d = 8.0 / 8192.0 / (1.0f64 + 0.49 + 0.16).sqrt();
+    let step = [d, 0.7 * d, 0.4 * d];
+    let q = (0..8192)
+        .map(|k| [k as f64 * step[0], k as f64 * step[1], k as f64 * step[2]])
+        .collect();
+    let f = vec![Complex64::new(1.0, 0.0); 8192];
+    LongRow {
+        pos,
+        w,
+        atoms,
+        step,
+        q,
+        f,
+    }
+}
+
+#[test]
+fn phase_stepping_drift_stays_below_1e_12_at_every_level() {
+    // Reference: the direct sum with the C library's sin/cos (no recurrence).
+    let t = long_row();
+    let want = reference(&t.pos, &t.w, &[0; 300], &t.q, &t.f);
+    for level in available_levels() {
+        let grid =
+            grid_amplitudes_at(level, &t.atoms, &[[0.0; 3]], t.step, 8192, &t.f, None).unwrap();
+        let point = point_amplitudes_at(level, &t.atoms, &t.q, &t.f, None).unwrap();
+        let (eg, ep) = (rel_l2(&grid, &want), rel_l2(&point, &want));
+        assert!(eg < 1e-12, "{}: grid drift {eg:e}", level.name());
+        assert!(ep < 1e-12, "{}: point error {ep:e}", level.name());
+        // The worst single point, on the scale of the largest possible |A| (Σ w).
+        let sw: f64 = t.w.iter().sum();
+        let worst = grid
+            .iter()
+            .zip(&want)
+            .map(|(a, b)| (a - b).norm())
+            .fold(0.0, f64::max);
+        assert!(worst / sw < 1e-13, "{}: {worst:e}", level.name());
+    }
+}
+
+#[test]
+fn every_kernel_level_gives_the_same_amplitudes_to_1e_13() {
+    // Reference for the comparison: the baseline level (no FMA, no vector registers beyond
+    // the architecture's baseline); every other level must agree with it to 1e-13 relative,
+    // and each level must be independent of the thread count.
+    let t = long_row();
+    let (pos, w, g) = random_atoms(1000, 13, 3);
+    let atoms = AtomSet::new(&pos, &w, &g, 3).unwrap();
+    let rows = [[-2.0, 0.5, 0.1], [1.0, -0.3, 2.2]];
+    let step = [0.013, 0.002, -0.004];
+    let fg: Vec<Complex64> = (0..3 * 2 * 500)
+        .map(|i| Complex64::new(1.0 + (i % 7) as f64, -0.5))
+        .collect();
+    let qp: Vec<[f64; 3]> = (0..500).map(|i| [0.02 * i as f64, -1.0, 0.5]).collect();
+    let fp = &fg[..3 * 500];
+    let base = Level::Baseline;
+    let g0 = grid_amplitudes_at(base, &atoms, &rows, step, 500, &fg, Some(1)).unwrap();
+    let p0 = point_amplitudes_at(base, &atoms, &qp, fp, Some(1)).unwrap();
+    let l0 = grid_amplitudes_at(base, &t.atoms, &[[0.0; 3]], t.step, 8192, &t.f, None).unwrap();
+    for level in available_levels() {
+        for threads in [1, 2] {
+            let g =
+                grid_amplitudes_at(level, &atoms, &rows, step, 500, &fg, Some(threads)).unwrap();
+            let p = point_amplitudes_at(level, &atoms, &qp, fp, Some(threads)).unwrap();
+            let l = grid_amplitudes_at(
+                level,
+                &t.atoms,
+                &[[0.0; 3]],
+                t.step,
+                8192,
+                &t.f,
+                Some(threads),
+            )
+            .unwrap();
+            let name = level.name();
+            assert!(rel_l2(&g, &g0) < 1e-13, "{name} grid {:e}", rel_l2(&g, &g0));
+            assert!(
+                rel_l2(&p, &p0) < 1e-13,
+                "{name} point {:e}",
+                rel_l2(&p, &p0)
+            );
+            assert!(rel_l2(&l, &l0) < 1e-13, "{name} row {:e}", rel_l2(&l, &l0));
+            if threads == 2 {
+                let g1 = grid_amplitudes_at(level, &atoms, &rows, step, 500, &fg, Some(1)).unwrap();
+                let p1 = point_amplitudes_at(level, &atoms, &qp, fp, Some(1)).unwrap();
+                assert_eq!(g, g1, "{name}: grid depends on the thread count");
+                assert_eq!(p, p1, "{name}: point depends on the thread count");
+            }
+        }
+    }
+}
+
+#[test]
+fn phases_beyond_the_sincos_range_are_refused() {
+    // Positions of 1e18 Å (issue 9: they gave intensities of 1e39): refused, naming the bound.
+    let atoms = AtomSet::new(
+        &[[1e18, 0.0, 0.0], [0.0, 0.0, 0.0]],
+        &[1.0, 1.0],
+        &[0, 0],
+        1,
+    )
+    .unwrap();
+    let f = [Complex64::new(1.0, 0.0); 4];
+    let e = point_amplitudes(&atoms, &[[1.0, 0.0, 0.0]], &f[..1], None).unwrap_err();
+    assert!(matches!(e, Error::Range(_)), "{e}");
+    assert!(e.to_string().contains("1e11 rad"), "{e}");
+    let e = grid_amplitudes(&atoms, &[[0.0; 3]], [0.5, 0.0, 0.0], 4, &f, None).unwrap_err();
+    assert!(e.to_string().contains("1e11 rad"), "{e}");
+    // Just inside the bound: 1e10 Å at |q| ≤ 5 Å⁻¹ (5e10 rad) is accepted, and a single atom
+    // has |A| = w exactly there (analytic).
+    let far = AtomSet::new(&[[1e10, 0.0, 0.0]], &[1.0], &[0], 1).unwrap();
+    let a = grid_amplitudes(&far, &[[0.0; 3]], [1.25, 0.0, 0.0], 4, &f, None).unwrap();
+    for z in a {
+        assert!((z.norm() - 1.0).abs() < 1e-12, "{z}");
+    }
+}
+
+#[test]
+fn absurd_thread_counts_are_refused() {
+    let atoms = AtomSet::new(&[[0.0; 3]], &[1.0], &[0], 1).unwrap();
+    let f = [Complex64::new(1.0, 0.0)];
+    let e = point_amplitudes(&atoms, &[[0.0; 3]], &f, Some(1 << 40)).unwrap_err();
+    assert!(e.to_string().contains("use fewer threads"), "{e}");
 }

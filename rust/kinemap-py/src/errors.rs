@@ -1,6 +1,6 @@
 //! Mapping of core errors to the Python exceptions defined in `kinemap/errors.py`.
 
-use pyo3::exceptions::PyRuntimeError;
+use pyo3::exceptions::{PyMemoryError, PyRuntimeError};
 use pyo3::PyErr;
 
 pyo3::import_exception!(kinemap.errors, InvalidInputError);
@@ -19,8 +19,11 @@ impl From<CoreErr> for PyErr {
     fn from(e: CoreErr) -> PyErr {
         use kinemap_core::Error as E;
         match e.0 {
-            E::Shape(m) | E::NonFinite(m) | E::Range(m) => InvalidInputError::new_err(m),
+            E::Shape(m) | E::NonFinite(m) | E::Range(m) | E::Kernel(m) => {
+                InvalidInputError::new_err(m)
+            }
             E::Threads(m) => PyRuntimeError::new_err(m),
+            E::Memory(m) => PyMemoryError::new_err(m),
         }
     }
 }

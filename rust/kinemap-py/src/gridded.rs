@@ -3,6 +3,7 @@
 
 use crate::arrays;
 use crate::errors::{invalid, CoreErr};
+use kinemap_core::gridded::sizing;
 use numpy::{Complex64, IntoPyArray, PyArray1, PyReadonlyArray1, PyReadonlyArray2};
 use pyo3::prelude::*;
 
@@ -163,16 +164,99 @@ impl PyPointPlan {
     }
 }
 
-/// gridded_kernel_width(tol, upsample) -> int: kernel points per axis the gridded path uses
-/// for a tolerance and oversampling factor (may exceed the supported maximum, 16).
+/// gridded_kernel_width(tol, upsample, *, points=False) -> int: kernel points per axis the
+/// gridded path uses for a tolerance and oversampling factor (regular grids, or arbitrary
+/// points, whose two stages share the budget); may exceed the supported maximum.
 #[pyfunction(name = "gridded_kernel_width")]
-pub fn gridded_kernel_width_py(tol: f64, upsample: f64) -> PyResult<usize> {
+#[pyo3(signature = (tol, upsample, *, points=false))]
+pub fn gridded_kernel_width_py(tol: f64, upsample: f64, points: bool) -> PyResult<usize> {
     if !(tol.is_finite() && tol > 0.0 && upsample.is_finite() && upsample > 1.0) {
         return Err(invalid(format!(
             "need tol > 0 and upsample > 1, got {tol}, {upsample}"
         )));
     }
-    Ok(kinemap_core::gridded::width_for(tol, upsample))
+    Ok(sizing::kernel_width(tol, upsample, points))
+}
+
+/// gridded_limits() -> (min_tol, max_width): the tightest tolerance the gridded path reaches
+/// and the widest kernel it supports (grid points per axis).
+#[pyfunction(name = "gridded_limits")]
+pub fn gridded_limits_py() -> (f64, usize) {
+    (sizing::MIN_TOL, kinemap_core::gridded::MAX_WIDTH)
+}
+
+/// gridded_upsample_choices(points=False) -> list[float]: the oversampling factors σ the
+/// planner considers (regular grids, or arbitrary points), largest first.
+#[pyfunction(name = "gridded_upsample_choices")]
+#[pyo3(signature = (points=false))]
+pub fn gridded_upsample_choices_py(points: bool) -> Vec<f64> {
+    if points {
+        sizing::UPSAMPLE_POINTS.to_vec()
+    } else {
+        sizing::UPSAMPLE_REGULAR.to_vec()
+    }
+}
+
+/// gridded_usable(tol, upsample, *, points=False) -> bool: whether the gridded path reaches
+/// `tol` at oversampling `upsample` (tolerance floor, kernel width, σ < 2 limits).
+#[pyfunction(name = "gridded_usable")]
+#[pyo3(signature = (tol, upsample, *, points=false))]
+pub fn gridded_usable_py(tol: f64, upsample: f64, points: bool) -> bool {
+    sizing::usable(tol, upsample, points)
+}
+
+/// gridded_fine_size(n, upsample, width) -> int: fine-grid points along an axis of n points
+/// (the smallest even 2,3,5-smooth size ≥ max(σ·n, 2·width), skipping multiples of 64 above
+/// 128).
+#[pyfunction(name = "gridded_fine_size")]
+pub fn gridded_fine_size_py(n: usize, upsample: f64, width: usize) -> PyResult<usize> {
+    check_sizing(upsample, width)?;
+    if upsample * n as f64 > kinemap_core::gridded::plan::MAX_AXIS as f64 {
+        return Err(invalid(format!(
+            "an axis of {n} points at oversampling {upsample} is too large for the gridded path"
+        )));
+    }
+    Ok(sizing::fine_size(n, upsample, width))
+}
+
+/// gridded_point_dims(upsample, width, extent, qrange) -> (list[int], list[int]): spreading
+/// and interpolation grid sizes of the arbitrary-point path for atoms spanning `extent` Å and
+/// q-points spanning `qrange` Å⁻¹ per Cartesian axis (axes where either is 0 drop out).
+#[pyfunction(name = "gridded_point_dims")]
+pub fn gridded_point_dims_py(
+    upsample: f64,
+    width: usize,
+    extent: [f64; 3],
+    qrange: [f64; 3],
+) -> PyResult<(Vec<usize>, Vec<usize>)> {
+    check_sizing(upsample, width)?;
+    let (mut d1, mut d2) = (Vec::new(), Vec::new());
+    for a in 0..3 {
+        let (x, s) = (extent[a], qrange[a]);
+        if !(x.is_finite() && s.is_finite() && x >= 0.0 && s >= 0.0) {
+            return Err(invalid(format!(
+                "`extent` and `qrange` must be finite and ≥ 0, got {x} and {s} on axis {a}"
+            )));
+        }
+        if x > 0.0 && s > 0.0 {
+            let (n1, n2) = sizing::point_axis(upsample, width, x, s).map_err(CoreErr)?;
+            d1.push(n1);
+            d2.push(n2);
+        }
+    }
+    Ok((d1, d2))
+}
+
+fn check_sizing(upsample: f64, width: usize) -> PyResult<()> {
+    if !(upsample.is_finite() && (1.0..=4.0).contains(&upsample)) {
+        return Err(invalid(format!(
+            "`upsample` must be in [1, 4], got {upsample}"
+        )));
+    }
+    if width == 0 || width > 64 {
+        return Err(invalid(format!("`width` must be in 1..=64, got {width}")));
+    }
+    Ok(())
 }
 
 /// Check and borrow the atoms of an `add` call, then run the spreading without the GIL.

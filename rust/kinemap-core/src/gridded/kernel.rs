@@ -169,12 +169,18 @@ impl Kernel {
     /// [`first_point`]. Lanes `i ≥ w` are zero.
     #[inline(always)]
     pub fn eval(&self, t: f64, out: &mut [f64; MAX_WIDTH]) {
+        self.eval_with::<crate::simd::Lanes<crate::dispatch::BaselineMulAdd>>(t, out)
+    }
+
+    /// [`Kernel::eval`] with the multiply–add of a kernel level.
+    #[inline(always)]
+    pub(crate) fn eval_with<V: crate::simd::F8>(&self, t: f64, out: &mut [f64; MAX_WIDTH]) {
         let n = self.coef.len();
         *out = self.coef[n - 1];
         for d in (0..n - 1).rev() {
             let c = &self.coef[d];
             for i in 0..MAX_WIDTH {
-                out[i] = crate::sincos::mul_add(out[i], t, c[i]);
+                out[i] = crate::simd::fma::<V>(out[i], t, c[i]);
             }
         }
     }
@@ -366,7 +372,7 @@ mod tests {
 
     #[test]
     fn refuses_too_wide_kernels() {
-        let e = Kernel::new(1e-14, 1.25).unwrap_err();
+        let e = Kernel::new(1e-12, 1.2).unwrap_err();
         assert!(e.to_string().contains("kernel of"), "{e}");
     }
 }

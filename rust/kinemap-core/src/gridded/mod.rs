@@ -18,6 +18,7 @@
 pub mod fft;
 pub mod kernel;
 pub mod plan;
+pub mod sizing;
 pub mod spread;
 
 pub use kernel::{width_for, Kernel, MAX_WIDTH};

@@ -6,9 +6,11 @@
 //! atom count. `finish(slot)` turns a slot's grid into the group sums
 //! `S_g(q) = Σ_{j in g} w_j exp(i q·r_j)` on the requested q-points and frees the grid.
 
-use super::fft::{centred, fft3, next_smooth};
+use super::fft::{centred, fft3};
 use super::kernel::Kernel;
-use super::spread::{interp, spread, zeroed_grid, Layout};
+use super::spread::{interp, spread, Layout};
+use crate::alloc::{filled, zeroed_complex};
+use crate::dispatch::{kernel_level, Level};
 use crate::error::{Error, Result};
 use crate::sincos::{mul_add, sincos};
 use num_complex::Complex64;
@@ -28,6 +30,11 @@ fn layout_slots(n_real: usize) -> [Option<usize>; 3] {
 
 /// Most slots (scattering groups) a plan keeps; each holds a whole fine grid.
 pub const MAX_SLOTS: usize = 1 << 16;
+/// Most points of a fine grid along one axis.
+pub const MAX_AXIS: usize = 1 << 31;
+/// Most points of a fine grid (16 TiB of complex values: far beyond any memory, so the
+/// refusal that matters in practice is the allocation's, reported as an error).
+pub const MAX_FINE: usize = 1 << 40;
 
 fn check_atoms(positions: &[[f64; 3]], weights: &[f64], slots: &[u32]) -> Result<()> {
     let n = positions.len();
@@ -92,35 +99,47 @@ fn by_slot(slots: &[u32]) -> Vec<(usize, Option<Vec<u32>>)> {
 /// Spread atoms batch by batch into the slots' grids; `prep(j)` gives atom `j`'s grid
 /// coordinates and complex weight.
 fn add_batches(
+    level: Level,
     store: &mut Vec<Option<Vec<Complex64>>>,
     lay: &Layout,
     ker: &Kernel,
     slots: &[u32],
     prep: impl Fn(usize) -> ([f64; 3], Complex64) + Sync,
-) {
+) -> Result<()> {
     let n = slots.len();
     let mut start = 0;
     while start < n {
         let end = (start + BATCH).min(n);
         for (s, idx) in by_slot(&slots[start..end]) {
             grow(store, s);
-            let grid = store[s].get_or_insert_with(|| zeroed_grid(lay.len()));
-            let (g, c): (Vec<[f64; 3]>, Vec<Complex64>) = match idx {
-                None => (start..end)
-                    .into_par_iter()
-                    .with_min_len(4096)
-                    .map(&prep)
-                    .unzip(),
-                Some(idx) => idx
-                    .par_iter()
-                    .with_min_len(4096)
-                    .map(|&i| prep(start + i as usize))
-                    .unzip(),
+            if store[s].is_none() {
+                store[s] = Some(zeroed_complex(lay.len(), &fine_grid_name(lay))?);
+            }
+            let Some(grid) = store[s].as_mut() else {
+                continue;
             };
-            spread(grid, lay, ker, &g, &c);
+            let k = idx.as_ref().map_or(end - start, |v| v.len());
+            let mut g = filled(k, [0.0; 3], "the atoms' grid coordinates")?;
+            let mut c = filled(k, Complex64::new(0.0, 0.0), "the atoms' spreading weights")?;
+            let gc = g.par_iter_mut().zip(c.par_iter_mut()).with_min_len(4096);
+            match idx {
+                None => gc
+                    .enumerate()
+                    .for_each(|(i, (g, c))| (*g, *c) = prep(start + i)),
+                Some(idx) => gc
+                    .zip(idx.par_iter())
+                    .for_each(|((g, c), &i)| (*g, *c) = prep(start + i as usize)),
+            }
+            spread(level, grid, lay, ker, &g, &c)?;
         }
         start = end;
     }
+    Ok(())
+}
+
+/// How an allocation error names a fine grid: its shape and size.
+fn fine_grid_name(lay: &Layout) -> String {
+    format!("a fine grid of {:?} points", lay.dims)
 }
 
 fn grow(slots: &mut Vec<Option<Vec<Complex64>>>, s: usize) {
@@ -147,6 +166,8 @@ pub struct RegularPlan {
     centre: [f64; 3],
     /// Per layout axis: `1/ψ̃(2πk/nf)` for the output frequencies in increasing k.
     deconv: [Vec<f64>; 3],
+    /// Bound on |q| over the grid (Å⁻¹), for the phase-range check of `add`.
+    q_max: f64,
     slots: Vec<Option<Vec<Complex64>>>,
 }
 
@@ -171,6 +192,7 @@ impl RegularPlan {
         }
         crate::point::check_vectors(&[origin], "grid origin")?;
         crate::point::check_vectors(steps, "grid step")?;
+        super::sizing::check_tol(tol)?;
         let kernel = Kernel::new(tol, upsample)?;
         let real: Vec<usize> = (0..shape.len()).filter(|&a| shape[a] > 1).collect();
         let place = layout_slots(real.len());
@@ -188,27 +210,48 @@ impl RegularPlan {
             if let Some(i) = p {
                 let a = real[*i];
                 let n = shape[a];
-                dims[l] = next_smooth(((upsample * n as f64).ceil() as usize).max(2 * kernel.w));
+                if upsample * n as f64 > MAX_AXIS as f64 {
+                    return Err(Error::Range(format!(
+                        "grid axis {a} has {n} points: its fine grid of {:.3e} points exceeds \
+                         the {MAX_AXIS} points per axis of the gridded path",
+                        upsample * n as f64
+                    )));
+                }
+                dims[l] = super::sizing::fine_size(n, upsample, kernel.w);
                 out_dims[l] = n;
                 lsteps[l] = steps[a];
             }
         }
         let total = dims.iter().try_fold(1usize, |acc, &n| acc.checked_mul(n));
-        if total.is_none_or(|t| t > (1usize << 40)) {
-            return Err(Error::Range(format!("fine grid {dims:?} is too large")));
+        if total.is_none_or(|t| t > MAX_FINE) {
+            return Err(Error::Range(format!(
+                "fine grid {dims:?} ({:.3e} points) exceeds the {MAX_FINE} points of the \
+                 gridded path",
+                dims.iter().map(|&d| d as f64).product::<f64>()
+            )));
         }
         let layout = Layout::new(dims, kernel.w);
-        let deconv = [0, 1, 2].map(|l| {
+        let mut deconv = [vec![1.0], vec![1.0], vec![1.0]];
+        for l in 0..3 {
             let (m, nf) = (out_dims[l], dims[l]);
-            if nf == 1 {
-                return vec![1.0];
+            if nf > 1 {
+                let c = (m / 2) as i64;
+                let mut d = filled(m, 0.0, "the deconvolution factors")?;
+                d.par_iter_mut().enumerate().for_each(|(i, v)| {
+                    *v = 1.0 / kernel.fourier(2.0 * PI * (i as i64 - c) as f64 / nf as f64)
+                });
+                deconv[l] = d;
             }
-            let c = (m / 2) as i64;
-            (0..m as i64)
-                .map(|i| 1.0 / kernel.fourier(2.0 * PI * (i - c) as f64 / nf as f64))
-                .collect()
-        });
+        }
+        let norm = |v: &[f64; 3]| (v[0] * v[0] + v[1] * v[1] + v[2] * v[2]).sqrt();
+        let q_max = norm(&centre)
+            + steps
+                .iter()
+                .zip(shape)
+                .map(|(st, &n)| norm(st) * (n / 2 + 1) as f64)
+                .sum::<f64>();
         Ok(RegularPlan {
+            q_max,
             kernel,
             layout,
             steps: lsteps,
@@ -249,11 +292,18 @@ impl RegularPlan {
         threads: Option<usize>,
     ) -> Result<()> {
         check_atoms(positions, weights, slots)?;
+        let level = kernel_level()?;
+        let r_max = positions
+            .iter()
+            .map(|r| r[0] * r[0] + r[1] * r[1] + r[2] * r[2])
+            .fold(0.0, f64::max)
+            .sqrt();
+        crate::point::check_phase_range(self.q_max, r_max)?;
         let (lay, ker, steps, centre) = (&self.layout, &self.kernel, self.steps, self.centre);
         let scale: [f64; 3] = lay.dims.map(|n| n as f64 / (2.0 * PI));
         let store = &mut self.slots;
         crate::pool::run(threads, || {
-            add_batches(store, lay, ker, slots, |j| {
+            add_batches(level, store, lay, ker, slots, |j| {
                 let r = positions[j];
                 let mut gp = [0.0; 3];
                 for l in 0..3 {
@@ -266,7 +316,7 @@ impl RegularPlan {
                 let (sn, cs) = sincos(ph);
                 (gp, Complex64::new(weights[j] * cs, weights[j] * sn))
             })
-        })
+        })?
     }
 
     /// Group sums `S(q)` of slot `slot` on the grid (row-major over the grid shape); frees the
@@ -274,7 +324,7 @@ impl RegularPlan {
     pub fn finish(&mut self, slot: usize, threads: Option<usize>) -> Result<Vec<Complex64>> {
         let m = self.n_points();
         let Some(mut grid) = self.slots.get_mut(slot).and_then(|g| g.take()) else {
-            return Ok(vec![Complex64::new(0.0, 0.0); m]);
+            return filled(m, Complex64::new(0.0, 0.0), "the group sums");
         };
         let dims = self.layout.dims;
         let od = self.out_dims;
@@ -288,7 +338,7 @@ impl RegularPlan {
                 [&full[0], &full[1], &full[2]],
                 [&win[0], &win[1], &win[2]],
             );
-            let mut out = zeroed_grid(m);
+            let mut out = zeroed_complex(m, "the group sums")?;
             out.par_chunks_mut(od[2]).enumerate().for_each(|(r, row)| {
                 let (i0, i1) = (r / od[1], r % od[1]);
                 let f01 = dc[0][i0] * dc[1][i1];
@@ -297,8 +347,8 @@ impl RegularPlan {
                     *o = grid[base + win[2][i2]] * (f01 * dc[2][i2]);
                 }
             });
-            out
-        })
+            Ok(out)
+        })?
     }
 }
 
@@ -355,6 +405,7 @@ impl PointPlan {
             )));
         }
         // Two approximation stages (spreading and interpolation) share the error budget.
+        super::sizing::check_tol(tol)?;
         let kernel = Kernel::new(0.5 * tol, upsample)?;
         let w = kernel.w;
         let (mut qlo, mut qhi) = ([f64::INFINITY; 3], [f64::NEG_INFINITY; 3]);
@@ -364,6 +415,10 @@ impl PointPlan {
                 qhi[a] = qhi[a].max(v[a]);
             }
         }
+        let norm = |v: &[f64; 3]| (v[0] * v[0] + v[1] * v[1] + v[2] * v[2]).sqrt();
+        let q_max = q.iter().map(norm).fold(0.0, f64::max);
+        let corner: [f64; 3] = [0, 1, 2].map(|a| lo[a].abs().max(hi[a].abs()));
+        crate::point::check_phase_range(q_max, norm(&corner))?;
         let centre_r: [f64; 3] = [0, 1, 2].map(|a| 0.5 * (lo[a] + hi[a]));
         let centre_q: [f64; 3] = [0, 1, 2].map(|a| 0.5 * (qlo[a] + qhi[a]));
         let x: [f64; 3] = [0, 1, 2].map(|a| 0.5 * (hi[a] - lo[a]));
@@ -377,26 +432,18 @@ impl PointPlan {
             if let Some(i) = p {
                 let a = real[*i];
                 // Margins as in Barnett et al.: the spread support stays inside one period.
-                let nfd = 2.0 * upsample * s[a] * x[a] / PI + (w + 1) as f64;
-                if nfd.is_nan() || nfd >= 1e9 {
-                    return Err(Error::Range(format!(
-                        "q-points span {:.3e} 1/Å and atoms {:.3e} Å along axis {a}: too large for the gridded path",
-                        2.0 * s[a],
-                        2.0 * x[a]
-                    )));
-                }
-                let nf = next_smooth((nfd.ceil() as usize).max(2 * w));
+                let (nf, n2) = super::sizing::point_axis(upsample, w, 2.0 * x[a], 2.0 * s[a])?;
                 let h = 2.0 * PI / nf as f64;
                 let gam = nf as f64 / (2.0 * upsample * s[a]);
                 d1[l] = nf;
-                d2[l] = next_smooth(((upsample * nf as f64).ceil() as usize).max(2 * w));
+                d2[l] = n2;
                 to_grid[l] = 1.0 / (gam * h);
                 gam_h[l] = gam * h;
                 axis[l] = Some(a);
             }
         }
         let total = d2.iter().try_fold(1usize, |acc, &n| acc.checked_mul(n));
-        if total.is_none_or(|t| t > (1usize << 40)) {
+        if total.is_none_or(|t| t > MAX_FINE) {
             return Err(Error::Range(format!(
                 "interpolation grid {d2:?} is too large"
             )));
@@ -412,7 +459,11 @@ impl PointPlan {
             gam_h,
             lo,
             hi,
-            q: q.to_vec(),
+            q: {
+                let mut v = crate::alloc::with_capacity(q.len(), "the q-points")?;
+                v.extend_from_slice(q);
+                v
+            },
             slots: Vec::new(),
         })
     }
@@ -442,6 +493,7 @@ impl PointPlan {
         threads: Option<usize>,
     ) -> Result<()> {
         check_atoms(positions, weights, slots)?;
+        let level = kernel_level()?;
         for (j, p) in positions.iter().enumerate() {
             for a in 0..3 {
                 let slack = 1e-9 * (1.0 + (self.hi[a] - self.lo[a]).abs() + self.hi[a].abs());
@@ -457,7 +509,7 @@ impl PointPlan {
         let (axis, cr, cq, tg) = (self.axis, self.centre_r, self.centre_q, self.to_grid);
         let store = &mut self.slots;
         crate::pool::run(threads, || {
-            add_batches(store, lay, ker, slots, |j| {
+            add_batches(level, store, lay, ker, slots, |j| {
                 let r = positions[j];
                 let xr = [r[0] - cr[0], r[1] - cr[1], r[2] - cr[2]];
                 let mut gp = [0.0; 3];
@@ -470,15 +522,16 @@ impl PointPlan {
                 let (sn, cs) = sincos(ph);
                 (gp, Complex64::new(weights[j] * cs, weights[j] * sn))
             })
-        })
+        })?
     }
 
     /// Group sums `S(q)` of slot `slot` at the plan's q-points (in their order); frees the
     /// slot's grid.
     pub fn finish(&mut self, slot: usize, threads: Option<usize>) -> Result<Vec<Complex64>> {
         let m = self.q.len();
+        let level = kernel_level()?;
         let Some(grid1) = self.slots.get_mut(slot).and_then(|g| g.take()) else {
-            return Ok(vec![Complex64::new(0.0, 0.0); m]);
+            return filled(m, Complex64::new(0.0, 0.0), "the group sums");
         };
         let (d1, d2) = (self.lay1.dims, self.lay2.dims);
         let ker = &self.kernel;
@@ -517,7 +570,7 @@ impl PointPlan {
                         .collect()
                 })
                 .collect();
-            let mut grid2 = zeroed_grid(lay2.len());
+            let mut grid2 = zeroed_complex(lay2.len(), "the interpolation grid")?;
             for i0 in 0..d1[0] {
                 for i1 in 0..d1[1] {
                     let f = inv[0][i0] * inv[1][i1];
@@ -537,10 +590,13 @@ impl PointPlan {
                 [&full[0], &full[1], &full[2]],
             );
             // Target coordinates in the second grid and the final deconvolution.
-            let (p2, post): (Vec<[f64; 3]>, Vec<Complex64>) = q
-                .par_iter()
+            let mut p2 = filled(m, [0.0; 3], "the targets' grid coordinates")?;
+            let mut post = filled(m, Complex64::new(0.0, 0.0), "the targets' factors")?;
+            p2.par_iter_mut()
+                .zip(post.par_iter_mut())
+                .zip(q.par_iter())
                 .with_min_len(1024)
-                .map(|v| {
+                .for_each(|((p2v, postv), v)| {
                     let mut p = [0.0; 3];
                     let mut tau = [0.0; 3];
                     let mut nt = 0;
@@ -556,15 +612,14 @@ impl PointPlan {
                     let ph = mul_add(v[2], cr[2], mul_add(v[1], cr[1], v[0] * cr[0]));
                     let (sn, cs) = sincos(ph);
                     let d = 1.0 / (psi[0] * psi[1] * psi[2]);
-                    (p, Complex64::new(cs * d, sn * d))
-                })
-                .unzip();
-            let mut out = zeroed_grid(m);
-            interp(&grid2, lay2, ker, &p2, &mut out);
+                    (*p2v, *postv) = (p, Complex64::new(cs * d, sn * d));
+                });
+            let mut out = zeroed_complex(m, "the group sums")?;
+            interp(level, &grid2, lay2, ker, &p2, &mut out)?;
             out.par_iter_mut()
                 .zip(post.par_iter())
                 .for_each(|(o, f)| *o *= f);
-            out
-        })
+            Ok(out)
+        })?
     }
 }

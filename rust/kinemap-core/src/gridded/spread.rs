@@ -16,6 +16,10 @@
 //! contributions in one fixed order, whatever the number of threads.
 
 use super::kernel::{first_point, Kernel, MAX_WIDTH};
+use crate::alloc::filled;
+use crate::dispatch::{multiversion, Level};
+use crate::error::Result;
+use crate::simd::{fma, F8};
 use num_complex::Complex64;
 use rayon::prelude::*;
 
@@ -46,72 +50,20 @@ impl Layout {
     }
 }
 
-/// A zeroed fine grid of `len` values, obtained from the allocator already zeroed (fresh
-/// pages from the operating system) and faulted in ahead of use (see `populate`).
-/// (Transparent huge pages were tried: a small gain on bare metal, but in virtual machines
-/// the first touch of huge pages doubled the time.)
-pub fn zeroed_grid(len: usize) -> Vec<Complex64> {
-    if len == 0 {
-        return Vec::new();
-    }
-    let layout = std::alloc::Layout::array::<Complex64>(len).expect("fine grid size overflows");
-    // `vec![zero; len]` would write the zeros itself (Complex64 is not known to be all-zero
-    // bits), touching every page up front on one thread.
-    // SAFETY: the layout has non-zero size; alloc_zeroed returns memory valid for `len`
-    // Complex64 values, all bits zero, which is 0 + 0i.
-    let ptr = unsafe { std::alloc::alloc_zeroed(layout) } as *mut Complex64;
-    if ptr.is_null() {
-        std::alloc::handle_alloc_error(layout);
-    }
-    #[cfg(target_os = "linux")]
-    populate(ptr as usize, layout.size());
-    // SAFETY: `ptr` comes from the global allocator with the layout of `len` Complex64 values,
-    // all of them initialised (zero), so the Vec owns exactly that allocation.
-    unsafe { Vec::from_raw_parts(ptr, len, len) }
-}
-
-/// Fault in the pages of `[addr, addr + bytes)` ahead of use with `MADV_POPULATE_WRITE`
-/// (Linux ≥ 5.14; older kernels refuse it and the pages fault in on first touch as usual).
-/// Page faults taken one by one from several threads contend in the kernel: measured, a
-/// 288³ FFT pass ran 2× slower on 2 threads than on 1 while faulting its grid in, and 10×
-/// faster after populating the grid first (0.12 s for 364 MB). Chunks are populated in
-/// parallel.
-#[cfg(target_os = "linux")]
-fn populate(addr: usize, bytes: usize) {
-    const PAGE: usize = 4096;
-    const MADV_POPULATE_WRITE: libc::c_int = 23;
-    const CHUNK: usize = 32 << 20;
-    let start = addr.next_multiple_of(PAGE);
-    let end = (addr + bytes) / PAGE * PAGE;
-    if end <= start {
-        return;
-    }
-    let n = (end - start).div_ceil(CHUNK);
-    (0..n).into_par_iter().for_each(|i| {
-        let a = start + i * CHUNK;
-        let len = CHUNK.min(end - a);
-        // SAFETY: [a, a + len) lies inside one live allocation owned by the caller;
-        // MADV_POPULATE_WRITE only faults the (zero) pages in, without changing contents.
-        unsafe {
-            libc::madvise(a as *mut libc::c_void, len, MADV_POPULATE_WRITE);
-        }
-    });
-}
-
 /// Bin sizes along axes 1 and 2 for the cache-friendly order inside a tile.
 const BIN1: usize = 4;
 const BIN2: usize = 16;
 
 /// Per-axis first grid point (wrapped into `0..n`) and kernel values of one point.
 #[inline(always)]
-fn axis_setup(ker: &Kernel, g: f64, n: usize, w: usize, k: &mut [f64; MAX_WIDTH]) -> usize {
+fn axis_setup<V: F8>(ker: &Kernel, g: f64, n: usize, w: usize, k: &mut [f64; MAX_WIDTH]) -> usize {
     if n == 1 {
         *k = [0.0; MAX_WIDTH];
         k[0] = 1.0;
         return 0;
     }
     let (l0, t) = first_point(g, w);
-    ker.eval(t, k);
+    ker.eval_with::<V>(t, k);
     l0.rem_euclid(n as i64) as usize
 }
 
@@ -165,7 +117,7 @@ unsafe impl Sync for GridPtr {}
 /// `grid` must point to `2·lay.len()` valid doubles, and no other thread may access the
 /// points these atoms' kernels cover while this runs.
 #[inline(always)]
-unsafe fn spread_points<const W: usize>(
+unsafe fn spread_points<V: F8, const W: usize>(
     grid: GridPtr,
     lay: &Layout,
     ker: &Kernel,
@@ -179,9 +131,9 @@ unsafe fn spread_points<const W: usize>(
     let mut kc = [0.0f64; 2 * MAX_WIDTH];
     let mut rows = [0usize; MAX_WIDTH];
     for (gp, cj) in g.iter().zip(c) {
-        let i0 = axis_setup(ker, gp[0], n0, w0, &mut k0);
-        let i1 = axis_setup(ker, gp[1], n1, w1, &mut k1);
-        let i2 = axis_setup(ker, gp[2], n2, W, &mut k2);
+        let i0 = axis_setup::<V>(ker, gp[0], n0, w0, &mut k0);
+        let i1 = axis_setup::<V>(ker, gp[1], n1, w1, &mut k1);
+        let i2 = axis_setup::<V>(ker, gp[2], n2, W, &mut k2);
         for i in 0..W {
             kc[2 * i] = cj.re * k2[i];
             kc[2 * i + 1] = cj.im * k2[i];
@@ -209,7 +161,7 @@ unsafe fn spread_points<const W: usize>(
                     // checked above); exclusive access by the caller's contract.
                     let row = unsafe { std::slice::from_raw_parts_mut(grid.0.add(o), 2 * W) };
                     for i in 0..2 * W {
-                        row[i] = crate::sincos::mul_add(f, kc[i], row[i]);
+                        row[i] = fma::<V>(f, kc[i], row[i]);
                     }
                 } else {
                     for i in 0..W {
@@ -221,9 +173,8 @@ unsafe fn spread_points<const W: usize>(
                         debug_assert!(o + 2 <= grid.1);
                         // SAFETY: as above, for one wrapped point.
                         unsafe {
-                            *grid.0.add(o) = crate::sincos::mul_add(f, kc[2 * i], *grid.0.add(o));
-                            *grid.0.add(o + 1) =
-                                crate::sincos::mul_add(f, kc[2 * i + 1], *grid.0.add(o + 1));
+                            *grid.0.add(o) = fma::<V>(f, kc[2 * i], *grid.0.add(o));
+                            *grid.0.add(o + 1) = fma::<V>(f, kc[2 * i + 1], *grid.0.add(o + 1));
                         }
                     }
                 }
@@ -243,6 +194,9 @@ unsafe impl Send for SortPtr {}
 // SAFETY: as above.
 unsafe impl Sync for SortPtr {}
 
+/// Points sorted for spreading: grid coordinates, weights, and the start of every tile's run.
+type Sorted = (Vec<[f64; 3]>, Vec<Complex64>, Vec<usize>);
+
 /// Sort points by tile and bin (stable counting sort); returns the sorted coordinates and
 /// weights and the start of every tile's run (tiles in row-major `(s0, s1)` order).
 fn sort_points(
@@ -251,7 +205,7 @@ fn sort_points(
     c: &[Complex64],
     part0: (usize, usize),
     part1: (usize, usize),
-) -> (Vec<[f64; 3]>, Vec<Complex64>, Vec<usize>) {
+) -> Result<Sorted> {
     let [n0, n1, n2] = lay.dims;
     let max1 = if part1.1 == 1 {
         n1
@@ -269,60 +223,59 @@ fn sort_points(
             first_point(x, w).0.rem_euclid(n as i64) as usize
         }
     };
-    let keys: Vec<u32> = g
-        .par_iter()
+    let mut keys = filled(g.len(), 0u32, "the spreading sort keys")?;
+    keys.par_iter_mut()
+        .zip(g.par_iter())
         .with_min_len(4096)
-        .map(|p| {
+        .for_each(|(k, p)| {
             let s0 = slab_of(first(p[0], n0, lay.widths[0]), part0.0, part0.1);
             let i1 = first(p[1], n1, lay.widths[1]);
             let s1 = slab_of(i1, part1.0, part1.1);
             let b1 = (i1 - s1 * part1.0) / BIN1;
             let b2 = first(p[2], n2, lay.widths[2]) / BIN2;
-            (((s0 * part1.1 + s1) * nb1 + b1) * nb2 + b2) as u32
-        })
-        .collect();
+            *k = (((s0 * part1.1 + s1) * nb1 + b1) * nb2 + b2) as u32;
+        });
     let n_bins = n_tiles * per_tile;
     // Stable counting sort, parallel over a fixed number of point blocks (not the thread
     // count): per-block histograms, offsets in (bin, block) order, then each block scatters
     // its points to its own destinations.
     let n = g.len();
     let n_blocks = n.div_ceil(SORT_BLOCK).max(1);
-    let hist: Vec<Vec<u32>> = keys
-        .par_chunks(SORT_BLOCK)
-        .map(|ks| {
-            let mut h = vec![0u32; n_bins];
+    let mut hist = filled(n_blocks * n_bins, 0u32, "the spreading sort histograms")?;
+    hist.par_chunks_mut(n_bins)
+        .zip(keys.par_chunks(SORT_BLOCK))
+        .for_each(|(h, ks)| {
             for &k in ks {
                 h[k as usize] += 1;
             }
-            h
-        })
-        .collect();
-    let mut offsets = vec![vec![0usize; n_bins]; n_blocks];
-    let mut tile_start = vec![0usize; n_tiles + 1];
+        });
+    let mut offsets = filled(n_blocks * n_bins, 0usize, "the spreading sort offsets")?;
+    let mut tile_start = filled(n_tiles + 1, 0usize, "the spreading tiles")?;
     let mut acc = 0usize;
     for b in 0..n_bins {
         if b % per_tile == 0 {
             tile_start[b / per_tile] = acc;
         }
-        for (blk, h) in hist.iter().enumerate() {
-            offsets[blk][b] = acc;
-            acc += h[b] as usize;
+        for blk in 0..n_blocks {
+            offsets[blk * n_bins + b] = acc;
+            acc += hist[blk * n_bins + b] as usize;
         }
     }
+    drop(hist);
     tile_start[n_tiles] = acc;
-    let mut gs = vec![[0.0; 3]; n];
-    let mut cs = vec![Complex64::new(0.0, 0.0); n];
+    let mut gs = filled(n, [0.0; 3], "the sorted grid coordinates")?;
+    let mut cs = filled(n, Complex64::new(0.0, 0.0), "the sorted weights")?;
     let (gp, cp) = (
         SortPtr(gs.as_mut_ptr() as *mut f64),
         SortPtr(cs.as_mut_ptr() as *mut f64),
     );
     offsets
-        .into_par_iter()
+        .par_chunks_mut(n_bins)
         .zip(
             keys.par_chunks(SORT_BLOCK)
                 .zip(g.par_chunks(SORT_BLOCK).zip(c.par_chunks(SORT_BLOCK))),
         )
-        .for_each(|(mut next, (ks, (gb, cb)))| {
+        .for_each(|(next, (ks, (gb, cb)))| {
             let (gp, cp) = (gp, cp);
             for ((&k, p), cj) in ks.iter().zip(gb).zip(cb) {
                 let d = next[k as usize];
@@ -336,59 +289,100 @@ fn sort_points(
                 }
             }
         });
-    (gs, cs, tile_start)
+    Ok((gs, cs, tile_start))
 }
 
 macro_rules! dispatch_width {
-    ($w:expr, $f:ident, $($arg:expr),*) => {
+    ($w:expr, $f:ident, $v:ty; $($arg:expr),*) => {
         match $w {
-            1 => $f::<1>($($arg),*),
-            2 => $f::<2>($($arg),*),
-            3 => $f::<3>($($arg),*),
-            4 => $f::<4>($($arg),*),
-            5 => $f::<5>($($arg),*),
-            6 => $f::<6>($($arg),*),
-            7 => $f::<7>($($arg),*),
-            8 => $f::<8>($($arg),*),
-            9 => $f::<9>($($arg),*),
-            10 => $f::<10>($($arg),*),
-            11 => $f::<11>($($arg),*),
-            12 => $f::<12>($($arg),*),
-            13 => $f::<13>($($arg),*),
-            14 => $f::<14>($($arg),*),
-            15 => $f::<15>($($arg),*),
-            16 => $f::<16>($($arg),*),
-            _ => unreachable!("kernel width above MAX_WIDTH"),
+            1 => $f::<$v, 1>($($arg),*),
+            2 => $f::<$v, 2>($($arg),*),
+            3 => $f::<$v, 3>($($arg),*),
+            4 => $f::<$v, 4>($($arg),*),
+            5 => $f::<$v, 5>($($arg),*),
+            6 => $f::<$v, 6>($($arg),*),
+            7 => $f::<$v, 7>($($arg),*),
+            8 => $f::<$v, 8>($($arg),*),
+            9 => $f::<$v, 9>($($arg),*),
+            10 => $f::<$v, 10>($($arg),*),
+            11 => $f::<$v, 11>($($arg),*),
+            12 => $f::<$v, 12>($($arg),*),
+            13 => $f::<$v, 13>($($arg),*),
+            14 => $f::<$v, 14>($($arg),*),
+            15 => $f::<$v, 15>($($arg),*),
+            _ => $f::<$v, 16>($($arg),*),
         }
     };
 }
 
+multiversion!(
+    /// Spread one tile's points (the unit of parallel work) with the kernels of a level.
+    fn spread_tile => spread_tile_k(grid: GridPtr, lay: &Layout, ker: &Kernel, g: &[[f64; 3]], c: &[Complex64])
+);
+
+#[inline(always)]
+fn spread_tile_k<V: F8>(
+    grid: GridPtr,
+    lay: &Layout,
+    ker: &Kernel,
+    g: &[[f64; 3]],
+    c: &[Complex64],
+) {
+    // SAFETY: the caller (`spread`) passes a pointer covering the whole grid and runs tiles
+    // with disjoint footprints concurrently (see the module notes). Widths above 16 never
+    // reach here (Kernel::new refuses them); the last arm only keeps the match total.
+    unsafe { dispatch_width!(lay.widths[2], spread_points, V; grid, lay, ker, g, c) }
+}
+
+multiversion!(
+    /// Interpolate at one chunk of points with the kernels of a level.
+    fn interp_chunk => interp_chunk_k(flat: &[f64], lay: &Layout, ker: &Kernel, g: &[[f64; 3]], out: &mut [Complex64])
+);
+
+#[inline(always)]
+fn interp_chunk_k<V: F8>(
+    flat: &[f64],
+    lay: &Layout,
+    ker: &Kernel,
+    g: &[[f64; 3]],
+    out: &mut [Complex64],
+) {
+    dispatch_width!(lay.widths[2], interp_points, V; flat, lay, ker, g, out)
+}
+
 /// Add the spread of points at grid coordinates `g` with weights `c` to `grid`
 /// (`lay.len()` values, row-major). Runs on the current rayon pool.
-pub fn spread(grid: &mut [Complex64], lay: &Layout, ker: &Kernel, g: &[[f64; 3]], c: &[Complex64]) {
-    assert_eq!(grid.len(), lay.len(), "grid and layout sizes differ");
+/// Fails only when its temporaries (about 60 bytes per point) cannot be allocated.
+pub fn spread(
+    level: Level,
+    grid: &mut [Complex64],
+    lay: &Layout,
+    ker: &Kernel,
+    g: &[[f64; 3]],
+    c: &[Complex64],
+) -> Result<()> {
+    debug_assert_eq!(grid.len(), lay.len(), "grid and layout sizes differ");
     if g.is_empty() {
-        return;
+        return Ok(());
     }
     let part0 = slabs(lay, 0);
     let part1 = slabs(lay, 1);
-    let (gs, cs, tile_start) = sort_points(lay, g, c, part0, part1);
+    let (gs, cs, tile_start) = sort_points(lay, g, c, part0, part1)?;
     let flat = as_f64_mut(grid);
     let ptr = GridPtr(flat.as_mut_ptr(), flat.len());
-    let w2 = lay.widths[2];
     let run = |t: usize| {
         let r = tile_start[t]..tile_start[t + 1];
-        // SAFETY: `ptr` covers the whole grid; the tiles of one phase have disjoint
-        // footprints (tile thickness ≥ kernel width, even tile counts), and phases run one
-        // after another, so no grid point is touched by two threads at once.
-        unsafe { dispatch_width!(w2, spread_points, ptr, lay, ker, &gs[r.clone()], &cs[r]) };
+        // `ptr` covers the whole grid; the tiles of one phase have disjoint footprints (tile
+        // thickness ≥ kernel width, even tile counts), and phases run one after another, so
+        // no grid point is touched by two threads at once (the contract of spread_tile).
+        spread_tile(level, ptr, lay, ker, &gs[r.clone()], &cs[r]);
     };
     let (s0n, s1n) = (part0.1, part1.1);
     let p0s: &[usize] = if s0n > 1 { &[0, 1] } else { &[0] };
     let p1s: &[usize] = if s1n > 1 { &[0, 1] } else { &[0] };
     if s0n == 1 && s1n == 1 {
         run(0);
-        return;
+        return Ok(());
     }
     for &p0 in p0s {
         for &p1 in p1s {
@@ -403,45 +397,48 @@ pub fn spread(grid: &mut [Complex64], lay: &Layout, ker: &Kernel, g: &[[f64; 3]]
             tiles.into_par_iter().for_each(run);
         }
     }
+    Ok(())
 }
 
 /// Interpolation (the adjoint of spreading): `out[j] = Σ_l grid[l] Π_a φ_a(l_a − g_a)`.
 /// Points are visited in bin order (for cache reuse on large grids) and the values put back in
 /// input order; each value is summed by one thread in a fixed order.
 pub fn interp(
+    level: Level,
     grid: &[Complex64],
     lay: &Layout,
     ker: &Kernel,
     g: &[[f64; 3]],
     out: &mut [Complex64],
-) {
+) -> Result<()> {
     let flat = as_f64(grid);
-    let w2 = lay.widths[2];
-    let order = bin_order(lay, g);
-    let gs: Vec<[f64; 3]> = order
-        .par_iter()
+    let order = bin_order(lay, g)?;
+    let mut gs = filled(g.len(), [0.0; 3], "the sorted target coordinates")?;
+    gs.par_iter_mut()
+        .zip(order.par_iter())
         .with_min_len(4096)
-        .map(|&j| g[j as usize])
-        .collect();
-    let mut vals = vec![Complex64::new(0.0, 0.0); g.len()];
+        .for_each(|(d, &j)| *d = g[j as usize]);
+    let mut vals = filled(g.len(), Complex64::new(0.0, 0.0), "the interpolated values")?;
     vals.par_chunks_mut(1024)
         .zip(gs.par_chunks(1024))
         .for_each(|(o, gp)| {
-            dispatch_width!(w2, interp_points, flat, lay, ker, gp, o);
+            interp_chunk(level, flat, lay, ker, gp, o);
         });
     for (&j, v) in order.iter().zip(&vals) {
         out[j as usize] = *v;
     }
+    Ok(())
 }
 
 /// Indices of the points sorted (stably) by cubes of 16 grid points along each axis.
-fn bin_order(lay: &Layout, g: &[[f64; 3]]) -> Vec<u32> {
+fn bin_order(lay: &Layout, g: &[[f64; 3]]) -> Result<Vec<u32>> {
     const B: usize = 16;
     let nb = lay.dims.map(|n| n.div_ceil(B));
-    let keys: Vec<u32> = g
-        .par_iter()
+    let mut keys = filled(g.len(), 0u32, "the interpolation sort keys")?;
+    keys.par_iter_mut()
+        .zip(g.par_iter())
         .with_min_len(4096)
-        .map(|p| {
+        .for_each(|(key, p)| {
             let mut k = 0usize;
             for a in 0..3 {
                 let i = if lay.dims[a] == 1 {
@@ -453,28 +450,27 @@ fn bin_order(lay: &Layout, g: &[[f64; 3]]) -> Vec<u32> {
                 };
                 k = k * nb[a] + i / B;
             }
-            k as u32
-        })
-        .collect();
+            *key = k as u32;
+        });
     let n_bins = nb[0] * nb[1] * nb[2];
-    let mut next = vec![0usize; n_bins + 1];
+    let mut next = filled(n_bins + 1, 0usize, "the interpolation bins")?;
     for &k in &keys {
         next[k as usize + 1] += 1;
     }
     for b in 0..n_bins {
         next[b + 1] += next[b];
     }
-    let mut order = vec![0u32; g.len()];
+    let mut order = filled(g.len(), 0u32, "the interpolation order")?;
     for (j, &k) in keys.iter().enumerate() {
         let d = &mut next[k as usize];
         order[*d] = j as u32;
         *d += 1;
     }
-    order
+    Ok(order)
 }
 
 #[inline(always)]
-fn interp_points<const W: usize>(
+fn interp_points<V: F8, const W: usize>(
     flat: &[f64],
     lay: &Layout,
     ker: &Kernel,
@@ -487,9 +483,9 @@ fn interp_points<const W: usize>(
     let mut k2d = [0.0f64; 2 * MAX_WIDTH];
     let plane = 2 * n1 * n2;
     for (gp, o) in g.iter().zip(out.iter_mut()) {
-        let i0 = axis_setup(ker, gp[0], n0, w0, &mut k0);
-        let i1 = axis_setup(ker, gp[1], n1, w1, &mut k1);
-        let i2 = axis_setup(ker, gp[2], n2, W, &mut k2);
+        let i0 = axis_setup::<V>(ker, gp[0], n0, w0, &mut k0);
+        let i1 = axis_setup::<V>(ker, gp[1], n1, w1, &mut k1);
+        let i2 = axis_setup::<V>(ker, gp[2], n2, W, &mut k2);
         for i in 0..W {
             k2d[2 * i] = k2[i];
             k2d[2 * i + 1] = k2[i];
@@ -512,7 +508,7 @@ fn interp_points<const W: usize>(
                 if contiguous {
                     let row = &flat[rb + 2 * i2..rb + 2 * i2 + 2 * W];
                     for i in 0..2 * W {
-                        acc[i] = crate::sincos::mul_add(f * k2d[i], row[i], acc[i]);
+                        acc[i] = fma::<V>(f * k2d[i], row[i], acc[i]);
                     }
                 } else {
                     for i in 0..W {
@@ -521,9 +517,8 @@ fn interp_points<const W: usize>(
                             z -= n2;
                         }
                         let fk = f * k2d[2 * i];
-                        acc[2 * i] = crate::sincos::mul_add(fk, flat[rb + 2 * z], acc[2 * i]);
-                        acc[2 * i + 1] =
-                            crate::sincos::mul_add(fk, flat[rb + 2 * z + 1], acc[2 * i + 1]);
+                        acc[2 * i] = fma::<V>(fk, flat[rb + 2 * z], acc[2 * i]);
+                        acc[2 * i + 1] = fma::<V>(fk, flat[rb + 2 * z + 1], acc[2 * i + 1]);
                     }
                 }
             }
@@ -602,7 +597,7 @@ mod tests {
             let lay = Layout::new(dims, ker.w);
             let (g, c) = points(300, dims, 7);
             let mut grid = vec![Complex64::new(0.0, 0.0); lay.len()];
-            spread(&mut grid, &lay, &ker, &g, &c);
+            spread(crate::dispatch::best_level(), &mut grid, &lay, &ker, &g, &c).unwrap();
             let want = direct(&lay, &ker, &g, &c);
             let err = grid
                 .iter()
@@ -615,7 +610,7 @@ mod tests {
                 .map(|i| Complex64::new((i as f64 * 0.37).sin(), (i as f64 * 0.11).cos()))
                 .collect();
             let mut iv = vec![Complex64::new(0.0, 0.0); g.len()];
-            interp(&v, &lay, &ker, &g, &mut iv);
+            interp(crate::dispatch::best_level(), &v, &lay, &ker, &g, &mut iv).unwrap();
             let lhs: Complex64 = grid.iter().zip(&v).map(|(a, b)| a * b).sum();
             let rhs: Complex64 = c.iter().zip(&iv).map(|(a, b)| a * b).sum();
             assert!(
@@ -632,7 +627,11 @@ mod tests {
         let (g, c) = points(20_000, lay.dims, 3);
         let run = |t: usize| {
             let mut grid = vec![Complex64::new(0.0, 0.0); lay.len()];
-            crate::pool::run(Some(t), || spread(&mut grid, &lay, &ker, &g, &c)).unwrap();
+            crate::pool::run(Some(t), || {
+                spread(crate::dispatch::best_level(), &mut grid, &lay, &ker, &g, &c)
+            })
+            .unwrap()
+            .unwrap();
             grid
         };
         assert_eq!(run(1), run(2));
