@@ -13,12 +13,11 @@ import textwrap
 
 import numpy as np
 import pytest
+from conftest import numpy_amplitude
 
 import kinemap as km
 from kinemap import _core
 from kinemap.errors import InvalidInputError
-
-from conftest import numpy_amplitude
 
 LEVELS = _core.kernel_levels()
 
