@@ -131,21 +131,23 @@ def resolve_box_and_cell(box, cell, supercell) -> tuple[np.ndarray | None, np.nd
     return b, c
 
 
-def _per_atom(value, species: np.ndarray, n: int, name: str, default: float) -> np.ndarray:
-    """Broadcast a scalar, an (N,) array or a {species: value} mapping to one value per atom."""
+def _per_atom(value, codes: tuple[np.ndarray, np.ndarray], n: int, name: str, default: float) -> np.ndarray:
+    """Broadcast a scalar, an (N,) array or a {species: value} mapping to one value per atom
+    (`codes`: the model's distinct labels and each atom's index into them)."""
     if value is None:
         return np.full(n, default, dtype=np.float64)
     if isinstance(value, Mapping):
-        out = np.full(n, default, dtype=np.float64)
-        labels = set(np.unique(species).tolist()) if n else set()
+        labels, index = codes
+        per_label = np.full(len(labels), default, dtype=np.float64)
+        known = {str(lab): i for i, lab in enumerate(labels)}
         for key, v in value.items():
-            if key not in labels:
+            if key not in known:
                 raise InvalidInputError(
                     f"`{name}` names species {key!r}, which the model does not have "
-                    f"(it has {sorted(labels)})"
+                    f"(it has {sorted(known)})"
                 )
-            out[species == key] = float(v)
-        return out
+            per_label[known[key]] = float(v)
+        return per_label[index] if n else np.zeros(0)
     a = np.asarray(value, dtype=np.float64)
     if a.ndim == 0:
         return np.full(n, float(a))
@@ -187,12 +189,16 @@ def _check_range(values: np.ndarray, name: str, lo: float, hi: float | None) -> 
 
 def _species_array(species, n: int) -> np.ndarray:
     if isinstance(species, str):
+        if not species:
+            raise InvalidInputError("`species` must be a non-empty string")
         return np.full(n, species, dtype=object)
     s = np.asarray(species, dtype=object)
     if s.shape != (n,):
         raise InvalidInputError(f"`species` must be one label or {n} labels (one per atom), got shape {s.shape}")
-    for j, lab in enumerate(s):
+    # Checked per distinct value (models have few labels), not per atom.
+    for lab in set(s.tolist()):
         if not isinstance(lab, str) or not lab:
+            j = next(i for i, x in enumerate(s) if x == lab and type(x) is type(lab))
             raise InvalidInputError(f"`species` of atom {j} must be a non-empty string, got {lab!r}")
     return s
 
@@ -265,21 +271,23 @@ class Model:
         self.positions = p
         n = len(p)
         self.species = _species_array(species, n)
-        self.occupancy = _per_atom(occupancy, self.species, n, "occupancy", 1.0)
+        codes = _factorize_labels(self.species)
+        self.occupancy = _per_atom(occupancy, codes, n, "occupancy", 1.0)
         _check_range(self.occupancy, "occupancy", 0.0, 1.0)
         if b_iso is not None and u_iso is not None:
             raise InvalidInputError("give either `b_iso` or `u_iso`, not both (B = 8π²U)")
         if u_aniso is not None and (b_iso is not None or u_iso is not None):
             raise InvalidInputError("`u_aniso` replaces `b_iso`/`u_iso`: give one kind of displacement")
         if u_iso is not None:
-            u = _per_atom(u_iso, self.species, n, "u_iso", 0.0)
+            u = _per_atom(u_iso, codes, n, "u_iso", 0.0)
             _check_range(u, "u_iso", 0.0, None)
             self.b_iso = 8.0 * np.pi**2 * u
         else:
-            self.b_iso = _per_atom(b_iso, self.species, n, "b_iso", 0.0)
+            self.b_iso = _per_atom(b_iso, codes, n, "b_iso", 0.0)
             _check_range(self.b_iso, "b_iso", 0.0, None)
         self.u_aniso = None if u_aniso is None else self._aniso(u_aniso, n)
         self._freeze()
+        self._codes = codes
 
     def _freeze(self) -> None:
         for arr in (self.positions, self.species, self.occupancy, self.b_iso, self.u_aniso):
@@ -287,6 +295,13 @@ class Model:
                 arr.flags.writeable = False
         self._groups: Groups | None = None
         self._counts: dict[str, int] | None = None
+        self._codes: tuple[np.ndarray, np.ndarray] | None = None
+
+    def _label_codes(self) -> tuple[np.ndarray, np.ndarray]:
+        """Sorted distinct labels and each atom's index into them (computed once)."""
+        if self._codes is None:
+            self._codes = _factorize_labels(self.species)
+        return self._codes
 
     def _aniso(self, u_aniso, n: int) -> np.ndarray:
         if isinstance(u_aniso, Mapping):
@@ -333,7 +348,7 @@ class Model:
     def species_counts(self) -> dict[str, int]:
         """Atoms per species label, sorted by label (computed once)."""
         if self._counts is None:
-            labels, codes = _factorize_labels(self.species)
+            labels, codes = self._label_codes()
             counts = np.bincount(codes, minlength=len(labels)) if len(codes) else np.zeros(0, int)
             self._counts = {str(k): int(v) for k, v in zip(labels, counts)}
         return dict(self._counts)
@@ -358,7 +373,7 @@ class Model:
     def _make_groups(self) -> Groups:
         if self.n_atoms == 0:
             return Groups(index=np.zeros(0, np.uint32), labels=[], b_iso=np.zeros(0), u_aniso=None)
-        labels, sp_index = _factorize_labels(self.species)
+        labels, sp_index = self._label_codes()
         if self.u_aniso is None:
             # Integer keys (species code × distinct-B index): sorting integers is much faster
             # than a row-wise unique of a float table, and a model with one B is one pass.
@@ -411,7 +426,7 @@ class Model:
         m.u_aniso = None if self.u_aniso is None else self.u_aniso[index]
         m._freeze()
         if isinstance(index, slice) and index == slice(None):  # same atoms: same groups
-            m._groups, m._counts = self._groups, self._counts
+            m._groups, m._counts, m._codes = self._groups, self._counts, self._codes
         return m
 
     def tiled(self, reps) -> Model:

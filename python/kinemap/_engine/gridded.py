@@ -33,12 +33,14 @@ through rounding.
 from __future__ import annotations
 
 import math
+from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 
 from .. import _core
 from .._shared.memory import available_memory, check_fits, human_bytes
 from .._shared.progress import Progress
+from .._shared.validate import cores
 from ..errors import InvalidInputError
 from ..model import Groups
 from ..qgrid import QGrid
@@ -72,7 +74,7 @@ _BIG_GRID = 64e6               # fine-grid points beyond which spreading slows d
 #: is known (arbitrary q-points; typical of condensed matter).
 ASSUMED_DENSITY = 0.1
 
-_BLOCK_Q = 1 << 20  # q-points per block when combining group sums with form factors
+_BLOCK_Q = 1 << 18  # q-points per block when combining group sums with form factors
 
 
 def _width(tol: float, sigma: float, points: bool = False) -> int | None:
@@ -309,14 +311,28 @@ def gridded_amplitudes(source, grid: QGrid, probe, *, tol: float, threads=None, 
         prog.close()
     out = np.zeros(m, dtype=np.complex128)
     tables = FactorTables(probe)
-    for key, slot in slots.items():
-        sums = plan.finish(slot, threads=threads)
-        one = _one_group(key)
-        for q0 in range(0, m, _BLOCK_Q):
-            q1 = min(m, q0 + _BLOCK_Q)
-            out[q0:q1] += tables.table(one, ("flat", q0, q1), grid.q_norms(q0, q1) / (4.0 * np.pi),
-                                       lambda q0=q0, q1=q1: grid.q_vectors(q0, q1))[0] * sums[q0:q1]
-        del sums
+    # s = |q|/4π once for the whole grid (8 bytes a point), shared by every group's factors.
+    s_all = grid.q_norms() / (4.0 * np.pi)
+    blocks = [(q0, min(m, q0 + _BLOCK_Q)) for q0 in range(0, m, _BLOCK_Q)]
+    workers = min(len(blocks), threads or cores())
+    with ThreadPoolExecutor(max_workers=max(workers, 1)) as pool:
+        for key, slot in slots.items():
+            sums = plan.finish(slot, threads=threads)
+            one = _one_group(key)
+
+            def combine(block, one=one, sums=sums):
+                # NumPy releases the GIL in these array operations, so blocks run in parallel;
+                # each block writes its own part of `out`, so the result does not depend on
+                # the number of threads.
+                q0, q1 = block
+                factor = tables.table(one, ("flat", q0, q1), s_all[q0:q1],
+                                      lambda: grid.q_vectors(q0, q1))[0]
+                part = sums[q0:q1]
+                part *= factor
+                out[q0:q1] += part
+
+            list(pool.map(combine, blocks))
+            del sums
     return out.reshape(grid.shape)
 
 
