@@ -69,6 +69,8 @@ _T_ATOM = 50e-9                # per atom: projection, phase, sort
 _T_GRID = 18.5e-9              # per fine-grid point: allocation, first touch, FFT
 _T_POINT = 15e-9               # per output point: deconvolution, factor table, combination
 _T_TARGET = 100e-9             # per arbitrary q-point: kernel transform, sorting (type 3)
+#: Estimated exact-sum time below which ``method="auto"`` keeps the exact sum (seconds).
+EXACT_IS_FINE = 0.2
 _BIG_GRID = 64e6               # fine-grid points beyond which spreading slows down (see _big_grid)
 #: Atomic number density (Å⁻³) assumed to estimate a model's extent when only its atom count
 #: is known (arbitrary q-points; typical of condensed matter).
@@ -156,20 +158,22 @@ def choose(n_atoms: int | None, grid: QGrid, tol: float) -> str:
     0.27 ns·wᵈ + 100 ns per point for interpolation. For
     arbitrary q-points the fine grid follows the product of the model's extent and the q-range
     per axis; the extent is estimated from the atom count assuming a compact model of density
-    0.1 atoms/Å³. A gridded plan that would not fit in memory, or a tolerance below
-    ``MIN_TOL`` (1e-12), selects "exact".
+    0.1 atoms/Å³. A gridded plan that would not fit in memory, a tolerance below
+    ``MIN_TOL`` (1e-12), or an exact sum estimated to take less than ``EXACT_IS_FINE`` (0.2 s:
+    nothing worth trading exactness for), selects "exact".
     """
     n = 100_000 if n_atoms is None else int(n_atoms)
     m = grid.size
     if m <= 1 or n == 0:
         return "exact"
     avail = available_memory()
+    exact = n * m * (_T_EXACT_GRID if grid.is_regular else _T_EXACT_POINT)
+    if exact < EXACT_IS_FINE:
+        return "exact"
     if grid.is_regular:
-        exact = n * m * _T_EXACT_GRID
         ests = [regular_estimate(n, grid, tol, s) for s in UPSAMPLE_CHOICES]
         ests = [e for e in ests if e is not None and e[1] < 0.5 * avail]
     else:
-        exact = n * m * _T_EXACT_POINT
         side = (n / ASSUMED_DENSITY) ** (1.0 / 3.0)
         q = grid.q.reshape(-1, 3)
         qrange = q.max(axis=0) - q.min(axis=0)
