@@ -151,7 +151,7 @@ def _map_info(path: Path) -> dict:
     info = {
         "file": str(path), "content": "map",
         "grid": g.kind, "shape": list(g.shape),
-        "axes": {f"{n} ({lab})": [float(v[0]), float(v[-1]), u]
+        "axes": {(n if lab == n else f"{n} ({lab})"): [float(v[0]), float(v[-1]), u]
                  for n, lab, v, u in zip(g.axis_names, g.axis_labels, g.axis_values, g.axis_units)},
         "intensity_units": sq, "amplitude_units": pat.units if pat.amplitude is not None else None,
         "has_sigma": pat.sigma is not None,
