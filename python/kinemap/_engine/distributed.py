@@ -36,7 +36,7 @@ from .._shared.output import atomic_write
 from .._shared.progress import Progress
 from ..errors import InvalidInputError
 from ..model import Model
-from ..qgrid import QGrid
+from ..qgrid import PointGrid, QGrid
 from .exact import Layout
 from .factors import FactorTables
 
@@ -120,7 +120,7 @@ def run_inputs(source, grid: QGrid, probe, *, chunk_atoms: int, block_points: in
     if not desc.get("file"):
         model["atoms_sha256"] = _model_digest(source, chunk_atoms)
     grid_desc = grid.describe()
-    if not grid.is_regular:
+    if isinstance(grid, PointGrid):
         grid_desc["q_sha256"] = hashlib.sha256(np.ascontiguousarray(grid.q).tobytes()).hexdigest()
     return _json_safe({"model": model, "grid": grid_desc, "probe": probe.metadata(), "method": "exact",
                        "chunk_atoms": chunk_atoms, "block_points": block_points, "kinemap_version": __version__})
