@@ -269,7 +269,7 @@ def delta_pdf(pattern: Pattern, bragg, *, fill: str = "mean", shell: int = 2, ap
                                 "it at least one step, and at least the peak or resolution width")
     check_fits(grid.size * (16 + 8 * 4), f"a 3D-ΔPDF of {grid.size:,} points")
     if symmetry is not None:
-        from .core import _symmetrize, _symmetry_spec
+        from .measured import _symmetrize, _symmetry_spec
 
         pattern = _symmetrize(pattern, _symmetry_spec(symmetry))
     values = np.array(pattern.intensity, dtype=np.float64)
