@@ -159,6 +159,7 @@ class H5MDSource(FileSource):
                     p[:, : ix.dim] *= ix.scale
                     check_chunk(p, start, f"{where}: {pos_el.value_path} (in angstrom)", self.frame)
                 if ix.image is not None:
+                    assert self._edges is not None  # the index refuses unwrap=True without box edges
                     img = self._per_atom(f, ix.image, start, stop).astype(np.float64)
                     if not np.isfinite(img).all():
                         j = int(np.flatnonzero(~np.isfinite(img).all(axis=1))[0])

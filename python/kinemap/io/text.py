@@ -29,6 +29,7 @@ from __future__ import annotations
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
@@ -451,7 +452,7 @@ class TextSource(FileSource):
 
     def _extra_description(self) -> dict:
         fr = self._fr
-        d = {"boundary": fr.pbc, "first_line": fr.line}
+        d: dict[str, Any] = {"boundary": fr.pbc, "first_line": fr.line}
         if fr.step is not None:
             d["step"] = fr.step
         if fr.time is not None:
