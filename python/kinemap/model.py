@@ -119,9 +119,9 @@ def resolve_box_and_cell(box, cell, supercell) -> tuple[np.ndarray | None, np.nd
     if supercell is None:
         return b, (c if c is not None else b)
     p = supercell_matrix(supercell)
-    if c is None and b is None:
-        raise InvalidInputError("`supercell` needs a `cell` (the parent cell) or a `box`")
     if c is None:
+        if b is None:
+            raise InvalidInputError("`supercell` needs a `cell` (the parent cell) or a `box`")
         return b, np.linalg.solve(p, b)
     implied = p @ c
     if b is None:

@@ -165,7 +165,8 @@ def _plane_coords(g: RegularGrid, keep) -> tuple[np.ndarray, np.ndarray, np.ndar
     n0, n1 = g.shape[keep[0]], g.shape[keep[1]]
     e1 = s0 / np.linalg.norm(s0) if np.linalg.norm(s0) > 0 else np.array([1.0, 0, 0])
     v = s1 - (s1 @ e1) * e1
-    e2 = v / np.linalg.norm(v) if np.linalg.norm(v) > 1e-15 * max(float(np.linalg.norm(s1)), 1e-300) else np.cross(e1, [0, 0, 1.0])
+    s1_len = float(np.linalg.norm(s1))
+    e2 = v / np.linalg.norm(v) if np.linalg.norm(v) > 1e-15 * max(s1_len, 1e-300) else np.cross(e1, [0, 0, 1.0])
     i = np.arange(n0)[:, None]
     j = np.arange(n1)[None, :]
     x = i * (s0 @ e1) + j * (s1 @ e1)

@@ -47,7 +47,7 @@ def _pid_alive(pid: int) -> bool:
 def remove_leftovers(folder: Path, name: str | None = None) -> list[Path]:
     """Remove temporary files of earlier runs in `folder` whose process no longer runs
     (optionally only those for the output `name`). Returns what was removed."""
-    removed = []
+    removed: list[Path] = []
     try:
         entries = list(os.scandir(folder))
     except OSError:

@@ -108,6 +108,8 @@ def _basis(b: Block, order: int, q_ref: float) -> list[np.ndarray]:
         return []
     cols = [np.ones_like(b.obs)]
     if order >= 1:
+        if b.q is None:
+            raise InvalidInputError("a background above flat needs |q| of every point")
         x = b.q / q_ref
         p = np.ones_like(x)
         for _ in range(order):

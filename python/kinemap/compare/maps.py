@@ -155,6 +155,7 @@ def rows_per_slab(grid: QGrid) -> int:
 
 def as_map(value, name: str, **open_options):
     """A Pattern, MapSource or map-file path as a slab map (ArrayMap or MapSource)."""
+    m: ArrayMap | MapSource
     if isinstance(value, Pattern):
         m = ArrayMap(value)
     elif isinstance(value, MapSource):

@@ -388,12 +388,13 @@ def open_map(path, group: str | None = None, *, cell=None, fixed: dict | None = 
                 raise ModelFileError(f"{str(p)!r}: errors '{g.name}/{ename}' must be a dataset of shape {sig.shape}")
             _check_signal(e, p, "errors")
             epath = e.name
-        names = _axis_names(g, sig, nd, p)
-        missing = [d for d, n in enumerate(names) if n is None]
+        found = _axis_names(g, sig, nd, p)
+        missing = [d for d, n in enumerate(found) if n is None]
         if missing:
             raise ModelFileError(f"{str(p)!r}: dimension(s) {missing} of '{sig.name}' have no axis (the NXdata 'axes' "
                                  "attribute must name one axis dataset per dimension); a map without axes has no q: "
                                  "give `grid` to read it as a plain dataset")
+        names = [n for n in found if n is not None]  # all of them (checked above)
         values, units, kinds, factors = [], [], [], []
         for d, name in enumerate(names):
             v, u = _axis_values(g, name, sig.shape[d], p)
