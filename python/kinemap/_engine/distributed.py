@@ -29,6 +29,7 @@ import hashlib
 import json
 import os
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -39,6 +40,9 @@ from ..model import Model
 from ..qgrid import PointGrid, QGrid
 from .exact import Layout
 from .factors import FactorTables
+
+if TYPE_CHECKING:
+    import distributed
 
 #: q-points per block when none is given: tasks of seconds to minutes for 10⁶-atom chunks.
 DEFAULT_BLOCK_POINTS = 1 << 16
@@ -191,6 +195,8 @@ class connect:
 
     def __init__(self, cluster):
         self.cluster = cluster
+        self.client: distributed.Client | None
+        self.owned: bool
         self.client, self.owned = (None, False) if cluster is None else _client(cluster)
 
     def __enter__(self):
@@ -209,7 +215,7 @@ def _close(client) -> None:
         cl.close()
 
 
-def _client(cluster):
+def _client(cluster) -> tuple[distributed.Client, bool]:
     """(client, owned) for "local"/an address/a Client."""
     try:
         import distributed

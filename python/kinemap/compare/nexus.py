@@ -228,7 +228,7 @@ def _file_cell(g, f) -> np.ndarray | None:
 
 def _hkl_grid(g, f, path, names, values, cell, fixed):
     nd = len(names)
-    idx = {}
+    idx: dict[int, str] = {}
     for d, name in enumerate(names):
         key = name.lower() if name.lower() in ("h", "k", "l") else None
         if key is None:
@@ -245,7 +245,7 @@ def _hkl_grid(g, f, path, names, values, cell, fixed):
         raise InvalidInputError(f"{str(path)!r}: the axes are in reciprocal-lattice units, but no cell was given and "
                                 "the file has none (NXsample unit_cell_abc/unit_cell_alphabetagamma); give `cell`")
     cell = as_cell(cell)
-    spec = {}
+    spec: dict[str, float | tuple[float, float, int]] = {}
     for d, key in idx.items():
         v = values[d]
         spec[key] = (float(v[0]), float(v[-1]), len(v))

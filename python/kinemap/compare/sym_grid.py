@@ -583,15 +583,15 @@ def _slab(g, r0, r1, n, tol, values0, flat_v, flat_a, flat_q, var0, flat_a_all, 
     # slabs along axis 0 of C-ordered arrays are contiguous, so the reshapes are views
     total[sl].reshape(-1)[idx] += v_int[good]
     count[sl].reshape(-1)[idx] += 1
-    if var is not None:
+    if var is not None and q_int is not None:  # (q_int is made with var)
         var[sl].reshape(-1)[idx] += q_int[good]       # Σ w σ² >= Σ w² σ²: an upper bound
     if second_diff is not None and err is not None:
         near = nearest[good]
-        e = np.zeros(len(near))
+        estimate = np.zeros(len(near))
         for d in range(k):
             t = frac[d][good]
-            e += 0.5 * t * (1.0 - t) * second_diff[d].reshape(-1)[near]
-        err[sl].reshape(-1)[idx] += e
+            estimate += 0.5 * t * (1.0 - t) * second_diff[d].reshape(-1)[near]
+        err[sl].reshape(-1)[idx] += estimate
 
 
 def second_differences(values0: np.ndarray, avail: np.ndarray) -> list[np.ndarray]:
