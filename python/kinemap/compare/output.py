@@ -318,7 +318,7 @@ def comparison_figure(cmp, *, slice_axis=None, slice_index=None, profile=None, s
         xs, ys = grid.axis_values[keep_axes[0]], grid.axis_values[keep_axes[1]]
         coords = lambda z: (xs, ys, z.T)  # noqa: E731
     else:
-        assert isinstance(grid, RegularGrid)  # maps on arbitrary points are 1-D here (refused above otherwise)
+        assert isinstance(grid, RegularGrid)  # other grids pass the check above only as 1-D profiles (drawn above)
         x, y, _e1, _e2 = _plane_coords(grid, keep_axes)
         coords = lambda z: (x, y, z)  # noqa: E731
     panels = (("m", meas, "measured I_o", norm, cmap), ("c", fit, "model s·I_c + b", norm, cmap),
