@@ -80,6 +80,14 @@ def test_voxel_average_on_the_box_lattice():
     np.testing.assert_allclose(centres.intensity, km.scatter(model, GRID).intensity, rtol=1e-12)
 
 
+def test_voxel_average_refuses_arbitrary_points():
+    # A voxel needs a regular grid around it (this used to fail with an AttributeError).
+    from kinemap.compare.sampling import voxel_average
+
+    with pytest.raises(InvalidInputError, match="needs a regular grid"):
+        voxel_average(alloy(), km.QGrid.points([[0.0, 0.0, 2 * np.pi / A]]))
+
+
 def test_fit_recovers_scale_and_background_within_the_noise(measured, truth):
     cmp = km.compare(alloy(), measured, exclude_bragg=EXCLUDE)
     used = cmp.used
@@ -256,6 +264,12 @@ def test_exclusion_in_inverse_angstrom_around_a_peak_list(rng):
     pts = grid.q_vectors()
     want = (np.linalg.norm(pts[:, None, :] - g[None], axis=2) <= 0.2).any(axis=1)
     np.testing.assert_array_equal(got, want)
+
+
+def test_bragg_mask_needs_an_exclusion():
+    # None used to end in an AttributeError inside the exclusion tree.
+    with pytest.raises(InvalidInputError, match="`exclusion` is missing"):
+        bragg_mask(GRID, None)
 
 
 def test_the_comparison_file(measured, tmp_path):

@@ -64,6 +64,20 @@ def test_peak_of_the_right_sign_at_plus_and_minus_u(c, lam):
     assert d.axis_names == ["u", "v", "w"]
 
 
+def test_symmetry_averages_the_pair_correlations_over_the_group():
+    # Averaging I(h) over m-3m averages P(u) over the images of u (the Fourier transform is
+    # linear and the operations are orthogonal on this cubic cell): the images of [1 0 0] are
+    # ±x, ±y, ±z, so P(1, 0, 0) becomes the mean of the autocorrelations along x, y and z.
+    # (symmetry= used to fail with an ImportError.)
+    occ = chains(16, 0.5, -0.4, seed=1)
+    d = delta_pdf(zone_map(occ, 1.0, 3.0), PUNCH, apodize=False, symmetry="m-3m")
+    axes = [autocorrelation(occ, 1.0, 3.0, r) for r in ((1, 0, 0), (0, 1, 0), (0, 0, 1))]
+    want = float(np.mean(axes))
+    for u in ([1, 0, 0], [0, -1, 0], [0, 0, 1]):
+        assert d.value_at(u) == pytest.approx(want, rel=0.02)
+    assert abs(want) < 0.5 * abs(axes[0])  # the averaging is visible: x alone is much stronger
+
+
 def test_amplitude_scales_with_c_one_minus_c_delta_f_squared():
     n = 20
     lam = 0.3
@@ -176,6 +190,10 @@ def test_bad_options(kwargs, message):
 def test_needs_an_hkl_grid():
     grid = km.QGrid.volume([-1, -1, -1], [2, 0, 0], [0, 2, 0], [0, 0, 2], (8, 8, 8))
     with pytest.raises(InvalidInputError, match="hkl grid"):
+        delta_pdf(km.Pattern(grid, intensity=np.ones(grid.shape)), PUNCH)
+    # kind "hkl" without a cell (QGrid.regular) has no h, k, l (used to fail inside NumPy)
+    grid = km.QGrid.regular([0, 0, 0], np.eye(3) * 0.1, (8, 8, 8), kind="hkl")
+    with pytest.raises(InvalidInputError, match="hkl grid with a cell"):
         delta_pdf(km.Pattern(grid, intensity=np.ones(grid.shape)), PUNCH)
 
 

@@ -122,6 +122,22 @@ def test_binning_into_a_plane_with_thickness(series):
         km.bin_frames(s["frames"], s["det"], grid=plane, axis=AXIS, angles=s["angles"])
 
 
+def test_binning_into_a_grid_of_kind_hkl_without_a_cell(series):
+    # QGrid.regular(..., kind="hkl") without a cell has its axes in Å⁻¹: it is binned in Å⁻¹.
+    # The same voxels as the fixture's hkl volume (cubic cell: q = 2π h / A), given in Å⁻¹,
+    # must reproduce the synthetic map (this used to fail inside NumPy on the missing cell).
+    s = series
+    to_q = 2 * np.pi / A
+    grid = km.QGrid.regular(np.full(3, -2.0 * to_q), np.eye(3) * 0.5 * to_q, (9, 9, 9), kind="hkl")
+    assert grid.cell is None
+    pat = km.bin_frames(s["frames"], s["det"], grid=grid, axis=AXIS, angles=s["angles"], monitor=s["monitor"],
+                        efficiency=s["eff"])
+    covered = np.isfinite(pat.intensity)
+    assert (covered == s["hit"]).all()
+    np.testing.assert_allclose(pat.intensity[covered], 1e6 * s["known"][covered], rtol=1e-10)
+    assert pat.metadata["thickness_units"] == "1/angstrom"
+
+
 def test_binning_bad_input(series):
     s = series
     det, grid, frames, angles = s["det"], s["grid"], s["frames"], s["angles"]

@@ -216,6 +216,22 @@ def test_convert_lammps_with_shuffled_ids_to_h5md(tmp_path, rng):
     assert open_model(out, frame=2).describe()["step"] == 200
 
 
+def test_convert_lammps_refuses_ids_in_some_frames_only(tmp_path, rng):
+    # Frame 0 orders the atoms by id; a later frame without ids cannot be put in that order
+    # (this used to end in a TypeError inside NumPy).
+    pos = rng.uniform(0, 9, (4, 3))
+    text = ""
+    for t, header in enumerate(["id type x y z", "type x y z"]):
+        text += f"ITEM: TIMESTEP\n{100 * t}\nITEM: NUMBER OF ATOMS\n4\nITEM: BOX BOUNDS pp pp pp\n0 9\n0 9\n0 9\n"
+        text += f"ITEM: ATOMS {header}\n"
+        for j, r in enumerate(pos):
+            text += (f"{j + 1} " if header.startswith("id") else "") + f"1 {r[0]} {r[1]} {r[2]}\n"
+    (tmp_path / "mixed.lammpstrj").write_text(text)
+    with pytest.raises(ModelFileError, match="frame 1 has no atom ids but frame 0 has them"):
+        convert(tmp_path / "mixed.lammpstrj", tmp_path / "mixed.h5md", species_map={1: "Al"})
+    assert not (tmp_path / "mixed.h5md").exists()
+
+
 def test_convert_xyz_selected_frames_float32(tmp_path, rng):
     frames = rng.uniform(0, 5, (4, 60, 3))
     sp = rng.choice(["C", "H"], 60)

@@ -1,20 +1,51 @@
-"""Type stub of the compiled core (rust/kinemap-py)."""
+"""Type stub of the compiled core (rust/kinemap-py).
+
+PyO3 classes are built by ``__new__`` (they have no ``__init__``) and cannot be subclassed
+(``@final``). Parameter names and kinds follow the ``#[pyo3(signature = ...)]`` of each
+binding; arrays must already be C-contiguous with the dtype shown (the Python wrappers convert
+them). Checked against the built module by ``python -m mypy.stubtest kinemap._core``.
+"""
+
+from collections.abc import Sequence
+from typing import final
 
 import numpy as np
 import numpy.typing as npt
+from typing_extensions import Self
+
+__all__ = [
+    "grid_amplitudes",
+    "gridded_fine_size",
+    "gridded_limits",
+    "gridded_point_dims",
+    "gridded_upsample_choices",
+    "gridded_usable",
+    "gridded_kernel_width",
+    "PointPlan",
+    "RegularPlan",
+    "debye_sums",
+    "pair_index",
+    "PairHistogram",
+    "AtomSet",
+    "kernel_level",
+    "kernel_levels",
+    "point_amplitudes",
+    "__version__",
+]
 
 __version__: str
 
+@final
 class AtomSet:
     """Atoms grouped by scattering factor, structure of arrays (positions Å, weights, groups)."""
 
-    def __init__(
-        self,
+    def __new__(
+        cls,
         positions: npt.NDArray[np.float64],
         weights: npt.NDArray[np.float64],
         groups: npt.NDArray[np.uint32],
         n_groups: int,
-    ) -> None: ...
+    ) -> Self: ...
     @property
     def n_atoms(self) -> int: ...
     @property
@@ -43,17 +74,18 @@ def kernel_level() -> str:
 def kernel_levels() -> list[str]:
     """The kernel levels this CPU can run, best first."""
 
+@final
 class RegularPlan:
     """Gridded (spreading + FFT) plan for a regular grid; one fine grid per slot (group)."""
 
-    def __init__(
-        self,
+    def __new__(
+        cls,
         origin: npt.NDArray[np.float64],
         steps: npt.NDArray[np.float64],
-        shape: list[int],
+        shape: Sequence[int],
         tol: float,
         upsample: float,
-    ) -> None: ...
+    ) -> Self: ...
     @property
     def fine_len(self) -> int: ...
     @property
@@ -70,17 +102,18 @@ class RegularPlan:
     ) -> None: ...
     def finish(self, slot: int, *, threads: int | None = None) -> npt.NDArray[np.complex128]: ...
 
+@final
 class PointPlan:
     """Gridded type-3 plan for arbitrary q-points inside the box [lo, hi] of positions."""
 
-    def __init__(
-        self,
+    def __new__(
+        cls,
         q: npt.NDArray[np.float64],
         lo: npt.NDArray[np.float64],
         hi: npt.NDArray[np.float64],
         tol: float,
         upsample: float,
-    ) -> None: ...
+    ) -> Self: ...
     @property
     def fine_lens(self) -> tuple[int, int]: ...
     @property
@@ -106,21 +139,22 @@ def gridded_fine_size(n: int, upsample: float, width: int) -> int: ...
 def gridded_point_dims(
     upsample: float,
     width: int,
-    extent: list[float],
-    qrange: list[float],
+    extent: Sequence[float],
+    qrange: Sequence[float],
 ) -> tuple[list[int], list[int]]: ...
 
+@final
 class PairHistogram:
     """Weighted pair-distance histograms per unordered group pair on nodes k·dr (Å)."""
 
-    def __init__(
-        self,
+    def __new__(
+        cls,
         n_groups: int,
         n_nodes: int,
         dr: float,
         cutoff: float | None = None,
         box: npt.NDArray[np.float64] | None = None,
-    ) -> None: ...
+    ) -> Self: ...
     @property
     def n_groups(self) -> int: ...
     @property

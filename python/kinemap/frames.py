@@ -48,7 +48,7 @@ from .errors import InvalidInputError
 from .model import AtomSource, AtomSourceBase, Model, as_cell, supercell_matrix
 from .pattern import Pattern, save_pattern
 from .probes import get_probe
-from .qgrid import QGrid
+from .qgrid import QGrid, RegularGrid
 from .scatter import DEFAULT_CHUNK_ATOMS, METHODS, KinematicApproximationWarning, as_grid, check_commensurate
 
 SPLITS = ("frames", "cells")
@@ -238,10 +238,13 @@ def _frame_grid(grid: QGrid, source) -> QGrid:
     """The grid for one frame: an hkl grid follows the frame's own cell (constant-pressure
     trajectories), other grids are used as given."""
     cell = source.cell
-    if grid.kind != "hkl" or cell is None or np.allclose(cell, grid.cell, rtol=1e-12, atol=0):
+    if grid.kind != "hkl" or not isinstance(grid, RegularGrid) or cell is None:
         return grid
+    h_origin, h_steps = grid.hkl_origin, grid.hkl_steps
+    if grid.cell is None or h_origin is None or h_steps is None or np.allclose(cell, grid.cell, rtol=1e-12, atol=0):
+        return grid  # (an hkl grid without a cell has no h, k, l to follow)
     to_q = 2.0 * np.pi * np.linalg.inv(as_cell(cell)).T
-    return QGrid.regular(grid.hkl_origin @ to_q, grid.hkl_steps @ to_q, grid.shape, cell=cell, kind="hkl")
+    return QGrid.regular(h_origin @ to_q, h_steps @ to_q, grid.shape, cell=cell, kind="hkl")
 
 
 def _cell_translations(box: np.ndarray, cell: np.ndarray) -> np.ndarray:
@@ -397,6 +400,7 @@ def average_frames(model, grid: QGrid, *, frames=None, split: str = "frames", pr
             sum_a += a
             sum_i += a.real * a.real + a.imag * a.imag
             if split == "cells":
+                assert sum_f is not None and translations is not None  # both made for split="cells"
                 f_bar, _ = amplitudes(_Folded(src, np.asarray(src.cell)), g_t, probe_obj, **run_opts(k, "folded"))
                 sum_f += f_bar / len(translations)
             descriptions.append(src.describe())
@@ -414,6 +418,7 @@ def average_frames(model, grid: QGrid, *, frames=None, split: str = "frames", pr
                     "bragg": "|<A>|^2 - D/n over frames (= total - diffuse); amplitude = <A>",
                     "diffuse": "D = n/(n-1) (<|A|^2> - |<A>|^2) over frames (unbiased)"}
     else:
+        assert sum_f is not None and translations is not None  # both made for split="cells"
         lattice = Model(translations, "X", cell=sources[0].cell, box=sources[0].box)
         l_box, _ = amplitudes(lattice, grid, unit, method="exact", tol=tol, threads=threads, progress=False,
                               chunk_atoms=chunk_atoms)

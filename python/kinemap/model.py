@@ -119,9 +119,9 @@ def resolve_box_and_cell(box, cell, supercell) -> tuple[np.ndarray | None, np.nd
     if supercell is None:
         return b, (c if c is not None else b)
     p = supercell_matrix(supercell)
-    if c is None and b is None:
-        raise InvalidInputError("`supercell` needs a `cell` (the parent cell) or a `box`")
     if c is None:
+        if b is None:
+            raise InvalidInputError("`supercell` needs a `cell` (the parent cell) or a `box`")
         return b, np.linalg.solve(p, b)
     implied = p @ c
     if b is None:
@@ -286,16 +286,17 @@ class Model:
             self.b_iso = _per_atom(b_iso, codes, n, "b_iso", 0.0)
             _check_range(self.b_iso, "b_iso", 0.0, None)
         self.u_aniso = None if u_aniso is None else self._aniso(u_aniso, n)
-        self._freeze()
-        self._codes = codes
+        self._freeze(codes)
 
-    def _freeze(self) -> None:
+    def _freeze(self, codes: tuple[np.ndarray, np.ndarray] | None = None) -> None:
+        """Make the arrays read-only and reset the cached groupings (`codes`: the label
+        factorisation when it is already known)."""
         for arr in (self.positions, self.species, self.occupancy, self.b_iso, self.u_aniso):
             if isinstance(arr, np.ndarray):
                 arr.flags.writeable = False
         self._groups: Groups | None = None
         self._counts: dict[str, int] | None = None
-        self._codes: tuple[np.ndarray, np.ndarray] | None = None
+        self._codes: tuple[np.ndarray, np.ndarray] | None = codes
 
     def _label_codes(self) -> tuple[np.ndarray, np.ndarray]:
         """Sorted distinct labels and each atom's index into them (computed once)."""

@@ -26,7 +26,7 @@ import numpy as np
 
 from ._shared.output import atomic_write
 from .errors import InvalidInputError, ModelFileError
-from .qgrid import QGrid
+from .qgrid import QGrid, RegularGrid
 
 
 class Pattern:
@@ -57,6 +57,7 @@ class Pattern:
         self.amplitude = None if amplitude is None else np.asarray(amplitude, dtype=np.complex128)
         if intensity is None:
             a = self.amplitude
+            assert a is not None  # refused above when both are missing
             intensity = a.real * a.real + a.imag * a.imag
         intensity = np.asarray(intensity)
         if intensity.dtype.kind == "c":
@@ -271,7 +272,7 @@ def save_pattern(pattern: Pattern, path, *, keep_amplitude: bool = True, extra: 
         if keep_amplitude and pattern.amplitude is not None:
             amp = data.create_dataset("amplitude", data=pattern.amplitude)
             amp.attrs["units"] = pattern.units
-        if g.is_regular:
+        if isinstance(g, RegularGrid):
             for i, (name, values, unit, label) in enumerate(zip(g.axis_names, g.axis_values, g.axis_units,
                                                                 g.axis_labels)):
                 ds = data.create_dataset(name, data=np.asarray(values, dtype=np.float64))
@@ -281,7 +282,7 @@ def save_pattern(pattern: Pattern, path, *, keep_amplitude: bool = True, extra: 
             axes = list(g.axis_names)
             data.attrs["axes"] = np.array(axes if axes else ["."], dtype=h5py.string_dtype())
         else:
-            qds = data.create_dataset("q", data=g.q.reshape(tuple(g.shape) + (3,)))
+            qds = data.create_dataset("q", data=g.q_vectors().reshape(tuple(g.shape) + (3,)))
             qds.attrs["units"] = "1/angstrom"
             data.attrs["axes"] = np.array(["."] * max(len(g.shape), 1), dtype=h5py.string_dtype())
         # The exact description of the grid (corner and step vectors), beside the axes.

@@ -18,6 +18,7 @@ import numpy as np
 from ._shared.output import atomic_write, check_output
 from .errors import InvalidInputError
 from .pattern import Pattern
+from .qgrid import QGrid, RegularGrid
 
 SCALES = ("log", "linear")
 AXIS_UNITS = ("auto", "rlu", "inv-angstrom")
@@ -54,7 +55,7 @@ def _values(pattern: Pattern, quantity: str) -> tuple[np.ndarray, str]:
     if quantity == "intensity":
         kind = pattern.metadata.get("average")
         names = {"total": "total ⟨|A|²⟩", "bragg": "Bragg |⟨A⟩|²", "diffuse": "diffuse ⟨|A|²⟩ − |⟨A⟩|²"}
-        name = names.get(kind, "intensity |A|²")
+        name = names.get(kind or "", "intensity |A|²")
         return pattern.intensity, f"{name} ({sq})"
     if pattern.amplitude is None:
         raise InvalidInputError(f"`quantity`={quantity!r} needs an amplitude, but this map has only an intensity "
@@ -111,9 +112,8 @@ def _norm(values: np.ndarray, scale: str, vmin, vmax):
     return Normalize(vmin=lo, vmax=hi)
 
 
-def _slice_2d(pattern: Pattern, slice_axis, slice_index):
-    """Return (values-selector, kept axes, description) for a 2-D view."""
-    g = pattern.grid
+def _slice_2d(g: QGrid, slice_axis, slice_index) -> tuple[tuple[slice | int, ...], list[int], str]:
+    """Return (values-selector, kept axes, description) for a 2-D view of a map on grid `g`."""
     nd = len(g.shape)
     if nd == 2:
         if slice_axis is not None:
@@ -136,7 +136,7 @@ def _slice_2d(pattern: Pattern, slice_axis, slice_index):
         idx += n
     if not 0 <= idx < n:
         raise InvalidInputError(f"`slice_index` {slice_index} is outside 0..{n - 1} along axis {g.axis_names[ax]!r}")
-    sel = [slice(None)] * 3
+    sel: list[slice | int] = [slice(None)] * 3
     sel[ax] = idx
     keep = [i for i in range(3) if i != ax]
     val = float(g.axis_values[ax][idx])
@@ -159,14 +159,14 @@ def _display_dilation(shape, axis_pixels: float) -> int:
     return max(1, int(np.ceil(3.0 * max(shape) / max(axis_pixels, 1.0))))
 
 
-def _plane_coords(pattern: Pattern, keep):
-    """In-plane Cartesian coordinates (Å⁻¹) of the grid points, for true-geometry plots."""
-    g = pattern.grid
+def _plane_coords(g: RegularGrid, keep) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """In-plane Cartesian coordinates (Å⁻¹) of the points of grid `g`, for true-geometry plots."""
     s0, s1 = g.steps[keep[0]], g.steps[keep[1]]
     n0, n1 = g.shape[keep[0]], g.shape[keep[1]]
     e1 = s0 / np.linalg.norm(s0) if np.linalg.norm(s0) > 0 else np.array([1.0, 0, 0])
     v = s1 - (s1 @ e1) * e1
-    e2 = v / np.linalg.norm(v) if np.linalg.norm(v) > 1e-15 * max(np.linalg.norm(s1), 1e-300) else np.cross(e1, [0, 0, 1.0])
+    s1_len = float(np.linalg.norm(s1))
+    e2 = v / np.linalg.norm(v) if np.linalg.norm(v) > 1e-15 * max(s1_len, 1e-300) else np.cross(e1, [0, 0, 1.0])
     i = np.arange(n0)[:, None]
     j = np.arange(n1)[None, :]
     x = i * (s0 @ e1) + j * (s1 @ e1)
@@ -218,9 +218,9 @@ def plot_map(pattern: Pattern, ax=None, *, scale: str = "log", axis_units: str =
     _check("axis_units", axis_units, AXIS_UNITS)
     _check("quantity", quantity, QUANTITIES)
     g = pattern.grid
-    if not g.is_regular:
+    if not isinstance(g, RegularGrid):
         raise InvalidInputError("maps on arbitrary q-points have no 2-D layout to draw; use a plane, hkl or volume grid")
-    sel, keep, cut = _slice_2d(pattern, slice_axis, slice_index)
+    sel, keep, cut = _slice_2d(g, slice_axis, slice_index)
     values, label = _values(pattern, quantity)
     z = np.asarray(values[sel], dtype=np.float64)
     if ax is None:
@@ -250,7 +250,7 @@ def plot_map(pattern: Pattern, ax=None, *, scale: str = "log", axis_units: str =
         ax.set_ylabel(f"{g.axis_labels[keep[1]]} (r.l.u.)")
         ax.set_aspect("auto")
     else:
-        x, y, e1, e2 = _plane_coords(pattern, keep)
+        x, y, e1, e2 = _plane_coords(g, keep)
         mesh = ax.pcolormesh(x, y, z, norm=norm, cmap=cmap, shading="nearest")
         ax.set_xlabel(f"q along {_fmt_vec(e1)} (Å⁻¹)")
         ax.set_ylabel(f"q along {_fmt_vec(e2)} (Å⁻¹)")
@@ -271,17 +271,17 @@ def plot_map(pattern: Pattern, ax=None, *, scale: str = "log", axis_units: str =
 _PARTS = {"total": "total", "bragg": "Bragg part", "diffuse": "diffuse part"}
 
 
-def _grid_phrase(g) -> str:
+def _grid_phrase(g: QGrid) -> str:
     """"(h k 0) plane", "[h 0 0] line", "volume", "plane through q0 = [..] Å⁻¹" ..."""
-    if g.kind == "hkl" and g.is_regular:
+    if g.kind == "hkl" and isinstance(g, RegularGrid):
         ranged = [lab for lab, n in zip(g.axis_labels, g.shape)]
         fixed = g.hkl_origin
-        if all(len(lab) == 1 for lab in ranged):
+        if fixed is not None and all(len(lab) == 1 for lab in ranged):
             comps = [lab if lab in ranged else f"{fixed[i]:g}" for i, lab in enumerate("hkl")]
             kind = {1: "line", 2: "plane", 3: "volume"}.get(len(ranged), "point")
             return f"({' '.join(comps)}) {kind}"
         return f"{' × '.join(ranged)} (r.l.u.)"
-    if g.is_regular:
+    if isinstance(g, RegularGrid):
         return f"{g.kind} from q₀ = {_fmt_vec(g.origin)} Å⁻¹"
     return f"{g.size} q-points"
 
@@ -334,7 +334,7 @@ def plot_profile(pattern: Pattern, ax=None, *, scale: str = "log", axis_units: s
     _check("axis_units", axis_units, AXIS_UNITS)
     _check("quantity", quantity, QUANTITIES)
     g = pattern.grid
-    if len(g.shape) != 1 or not g.is_regular:
+    if len(g.shape) != 1 or not isinstance(g, RegularGrid):
         raise InvalidInputError(f"a profile needs a 1-D line or hkl grid; this map has shape {g.shape} ({g.kind})")
     values, vlabel = _values(pattern, quantity)
     if ax is None:

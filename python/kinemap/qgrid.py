@@ -340,15 +340,16 @@ class RegularGrid(QGrid):
             hs = _tidy(self.steps @ self.cell.T / (2.0 * np.pi))
             set_(self, "hkl_origin", _readonly(ho))
             set_(self, "hkl_steps", _readonly(hs))
+        hkl_origin, hkl_steps = self.hkl_origin, self.hkl_steps  # set with a cell
         for a, n in enumerate(self.shape):
             idx = np.arange(n, dtype=np.float64)
-            if self.cell is not None and self.kind == "hkl":
-                hs = self.hkl_steps[a]
+            if hkl_origin is not None and hkl_steps is not None and self.kind == "hkl":
+                hs = hkl_steps[a]
                 if not np.any(hs):
                     name, label, comp = "", "(one point)", 0
                 else:
                     name, label, comp = _hkl_axis(hs)
-                values.append(self.hkl_origin[comp] + idx * hs[comp])
+                values.append(hkl_origin[comp] + idx * hs[comp])
                 units.append("r.l.u.")
             else:
                 st = self.steps[a]

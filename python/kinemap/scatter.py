@@ -25,7 +25,7 @@ from .errors import InvalidInputError
 from .model import AtomSource, Model
 from .pattern import Pattern
 from .probes import get_probe
-from .qgrid import QGrid
+from .qgrid import QGrid, RegularGrid
 
 #: Atoms per chunk when streaming (about 100 MB of working arrays per chunk).
 DEFAULT_CHUNK_ATOMS = 1 << 20
@@ -60,7 +60,7 @@ def check_commensurate(source, grid: QGrid, *, stacklevel: int = 3) -> bool:
     """Warn (:class:`OffLatticeWarning`) when a regular grid is off the reciprocal lattice of a
     periodic model's box; returns whether it is on it."""
     box = getattr(source, "box", None)
-    if box is None or not grid.is_regular or not grid.shape:
+    if box is None or not isinstance(grid, RegularGrid) or not grid.shape:
         return True
     if grid.is_commensurate(box):
         return True

@@ -29,6 +29,7 @@ import hashlib
 import json
 import os
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -36,9 +37,12 @@ from .._shared.output import atomic_write
 from .._shared.progress import Progress
 from ..errors import InvalidInputError
 from ..model import Model
-from ..qgrid import QGrid
+from ..qgrid import PointGrid, QGrid
 from .exact import Layout
 from .factors import FactorTables
+
+if TYPE_CHECKING:
+    import distributed
 
 #: q-points per block when none is given: tasks of seconds to minutes for 10⁶-atom chunks.
 DEFAULT_BLOCK_POINTS = 1 << 16
@@ -120,7 +124,7 @@ def run_inputs(source, grid: QGrid, probe, *, chunk_atoms: int, block_points: in
     if not desc.get("file"):
         model["atoms_sha256"] = _model_digest(source, chunk_atoms)
     grid_desc = grid.describe()
-    if not grid.is_regular:
+    if isinstance(grid, PointGrid):
         grid_desc["q_sha256"] = hashlib.sha256(np.ascontiguousarray(grid.q).tobytes()).hexdigest()
     return _json_safe({"model": model, "grid": grid_desc, "probe": probe.metadata(), "method": "exact",
                        "chunk_atoms": chunk_atoms, "block_points": block_points, "kinemap_version": __version__})
@@ -191,6 +195,8 @@ class connect:
 
     def __init__(self, cluster):
         self.cluster = cluster
+        self.client: distributed.Client | None
+        self.owned: bool
         self.client, self.owned = (None, False) if cluster is None else _client(cluster)
 
     def __enter__(self):
@@ -209,7 +215,7 @@ def _close(client) -> None:
         cl.close()
 
 
-def _client(cluster):
+def _client(cluster) -> tuple[distributed.Client, bool]:
     """(client, owned) for "local"/an address/a Client."""
     try:
         import distributed

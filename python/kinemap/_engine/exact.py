@@ -14,7 +14,7 @@ import numpy as np
 
 from .. import _core
 from .._shared.progress import Progress
-from ..qgrid import QGrid
+from ..qgrid import QGrid, RegularGrid
 from .factors import FactorTables, row_s
 
 # Atom–q pairs per core call: a few tenths of a second at the measured rates.
@@ -31,8 +31,8 @@ class Layout:
 
     def __init__(self, grid: QGrid):
         self.grid = grid
-        self.regular = grid.is_regular and bool(grid.shape)
-        if self.regular:
+        self.regular = isinstance(grid, RegularGrid) and bool(grid.shape)
+        if isinstance(grid, RegularGrid) and self.regular:
             shape = grid.shape
             self.fast = int(np.argmax(shape))
             self.other = [a for a in range(len(shape)) if a != self.fast]
@@ -53,6 +53,7 @@ class Layout:
 
     def _rows(self, u0: int, u1: int) -> np.ndarray:
         g = self.grid
+        assert isinstance(g, RegularGrid)  # rows exist on regular grids only (self.regular)
         rows = np.broadcast_to(g.origin, (u1 - u0, 3)).copy()
         if self.other_shape:
             idx = np.unravel_index(np.arange(u0, u1), self.other_shape)
@@ -73,7 +74,7 @@ class Layout:
             return _core.grid_amplitudes(atoms, rows, step, n, factors, threads=threads)
         q = np.ascontiguousarray(self.grid.q_vectors(u0, u1))
         s = np.sqrt(np.einsum("mi,mi->m", q, q)) / (4.0 * np.pi)
-        factors = tables.table(groups, ("points", u0, u1), s, lambda q=q: q)
+        factors = tables.table(groups, ("points", u0, u1), s, lambda: q)
         return _core.point_amplitudes(atoms, q, factors, threads=threads)
 
     def add_chunk(self, chunk, tables: FactorTables, out: np.ndarray, u0: int, u1: int, threads,

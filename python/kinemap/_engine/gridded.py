@@ -32,6 +32,7 @@ through rounding.
 
 from __future__ import annotations
 
+import functools
 import math
 from concurrent.futures import ThreadPoolExecutor
 
@@ -43,7 +44,7 @@ from .._shared.progress import Progress
 from .._shared.validate import cores
 from ..errors import InvalidInputError
 from ..model import Groups
-from ..qgrid import QGrid
+from ..qgrid import QGrid, RegularGrid
 from .factors import FactorTables
 
 #: Oversampling factors σ the planner considers for regular grids (fine grid = σ × output
@@ -167,15 +168,15 @@ def choose(n_atoms: int | None, grid: QGrid, tol: float) -> str:
     if m <= 1 or n == 0:
         return "exact"
     avail = available_memory()
-    exact = n * m * (_T_EXACT_GRID if grid.is_regular else _T_EXACT_POINT)
+    exact = n * m * (_T_EXACT_GRID if isinstance(grid, RegularGrid) else _T_EXACT_POINT)
     if exact < EXACT_IS_FINE:
         return "exact"
-    if grid.is_regular:
+    if isinstance(grid, RegularGrid):
         ests = [regular_estimate(n, grid, tol, s) for s in UPSAMPLE_CHOICES]
         ests = [e for e in ests if e is not None and e[1] < 0.5 * avail]
     else:
         side = (n / ASSUMED_DENSITY) ** (1.0 / 3.0)
-        q = grid.q.reshape(-1, 3)
+        q = grid.q_vectors()
         qrange = q.max(axis=0) - q.min(axis=0)
         ests = [point_estimate(n, m, (side,) * 3, qrange, tol, s) for s in UPSAMPLE_CHOICES_POINTS]
         ests = [e for e in ests if e is not None and e[1] + e[2] < 0.5 * avail]
@@ -214,12 +215,13 @@ def _bounds(source, chunk_atoms: int):
     return lo, hi
 
 
-def _make_plan(source, grid: QGrid, tol: float, chunk_atoms: int):
+def _make_plan(source, grid: QGrid, tol: float,
+               chunk_atoms: int) -> tuple[_core.RegularPlan | _core.PointPlan, int, int]:
     """Build the cheapest plan (over the oversampling choices) that fits in memory."""
     n = source.n_atoms
     n = 100_000 if n is None else int(n)
     avail = available_memory()
-    if grid.is_regular:
+    if isinstance(grid, RegularGrid):
         ests = [(regular_estimate(n, grid, tol, s), s) for s in UPSAMPLE_CHOICES]
         ests = [(e, s) for e, s in ests if e is not None]
         if not ests:
@@ -231,7 +233,7 @@ def _make_plan(source, grid: QGrid, tol: float, chunk_atoms: int):
         plan = _core.RegularPlan(np.ascontiguousarray(grid.origin, dtype=np.float64), steps,
                                  [int(s) for s in grid.shape], float(tol), float(sigma))
         return plan, 16 * plan.fine_len, 0
-    q = np.ascontiguousarray(grid.q.reshape(-1, 3), dtype=np.float64)
+    q = np.ascontiguousarray(grid.q_vectors(), dtype=np.float64)
     lo, hi = _bounds(source, chunk_atoms)
     extent, qrange = hi - lo, q.max(axis=0) - q.min(axis=0)
     ests = [(point_estimate(n, len(q), extent, qrange, tol, s), s) for s in UPSAMPLE_CHOICES_POINTS]
@@ -245,10 +247,10 @@ def _make_plan(source, grid: QGrid, tol: float, chunk_atoms: int):
                f"the gridded path's interpolation grid for {len(q)} q-points spanning "
                f"{np.round(qrange, 3).tolist()} 1/Å over atoms spanning {np.round(extent, 1).tolist()} Å "
                "(use method='exact' or a narrower q-range)")
-    plan = _core.PointPlan(q, np.ascontiguousarray(lo, dtype=np.float64),
-                           np.ascontiguousarray(hi, dtype=np.float64), float(tol), float(sigma))
-    fine1, fine2 = plan.fine_lens
-    return plan, 16 * fine1, 16 * fine2
+    point_plan = _core.PointPlan(q, np.ascontiguousarray(lo, dtype=np.float64),
+                                 np.ascontiguousarray(hi, dtype=np.float64), float(tol), float(sigma))
+    fine1, fine2 = point_plan.fine_lens
+    return point_plan, 16 * fine1, 16 * fine2
 
 
 def gridded_amplitudes(source, grid: QGrid, probe, *, tol: float, threads=None, progress=False,
@@ -330,7 +332,7 @@ def gridded_amplitudes(source, grid: QGrid, probe, *, tol: float, threads=None, 
                 # the number of threads.
                 q0, q1 = block
                 factor = tables.table(one, ("flat", q0, q1), s_all[q0:q1],
-                                      lambda: grid.q_vectors(q0, q1))[0]
+                                      functools.partial(grid.q_vectors, q0, q1))[0]
                 part = sums[q0:q1]
                 part *= factor
                 out[q0:q1] += part

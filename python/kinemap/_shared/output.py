@@ -24,7 +24,10 @@ import re
 import secrets
 import signal
 import threading
+from collections.abc import Callable
 from pathlib import Path
+from types import FrameType
+from typing import Any
 
 from ..errors import InvalidInputError
 from .validate import file_name
@@ -47,7 +50,7 @@ def _pid_alive(pid: int) -> bool:
 def remove_leftovers(folder: Path, name: str | None = None) -> list[Path]:
     """Remove temporary files of earlier runs in `folder` whose process no longer runs
     (optionally only those for the output `name`). Returns what was removed."""
-    removed = []
+    removed: list[Path] = []
     try:
         entries = list(os.scandir(folder))
     except OSError:
@@ -113,7 +116,7 @@ class HeldSignals:
 
     def __init__(self):
         self.received: list[int] = []
-        self.previous: dict[int, object] = {}
+        self.previous: dict[int, Callable[[int, FrameType | None], Any] | int | None] = {}
 
     def __enter__(self):
         if threading.current_thread() is threading.main_thread():

@@ -333,7 +333,7 @@ def grid_cell(args, source):
 
 def build_grid(args, source=None):
     """The grid the options describe (with --snap applied), and the notes to print."""
-    from ..qgrid import QGrid
+    from ..qgrid import QGrid, RegularGrid
 
     chosen = [k for k in ("points", "line", "plane", "volume", "hkl") if getattr(args, k)]
     if not chosen:
@@ -353,6 +353,7 @@ def build_grid(args, source=None):
         c, note = grid_cell(args, source)
         if note:
             notes.append(note)
+    grid: QGrid
     if kind == "points":
         grid = QGrid.points(load_points(args.points))
     elif kind == "line":
@@ -371,7 +372,7 @@ def build_grid(args, source=None):
         box = None if source is None else source.box
         if box is None:
             raise UsageError("--snap needs a periodic model: this one has no box")
-        if not grid.is_regular:
+        if not isinstance(grid, RegularGrid):
             raise UsageError("--snap applies to regular grids, not --points")
         if not grid.is_commensurate(box):
             old = grid.shape
@@ -410,7 +411,9 @@ class Cautions(warnings.catch_warnings):
         super().__init__(record=True)
 
     def __enter__(self):
-        self.caught = super().__enter__()
+        caught = super().__enter__()
+        assert caught is not None  # (record=True)
+        self.caught = caught
         warnings.simplefilter("always")
         return self
 

@@ -269,7 +269,7 @@ def run(args) -> int:
     if args.png and out is None:
         raise UsageError("--png draws beside the comparison file: give -o OUT.h5")
     png = check_output(out.with_suffix(".png"), overwrite=args.overwrite, inputs=inputs, what="picture") \
-        if args.png else None
+        if args.png and out is not None else None
     mask = _load_mask(args.mask) if args.mask else None
     meas = _measured(args)
     calcs, names = _calcs(args)

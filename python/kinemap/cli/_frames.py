@@ -38,6 +38,7 @@ degrees. Registered in :mod:`kinemap.cli` through :func:`add_parsers` and :func:
 from __future__ import annotations
 
 import argparse
+import sys
 import warnings
 from pathlib import Path
 
@@ -64,9 +65,9 @@ _REQUIRED = ("shape", "pixel_size_mm", "distance_mm", "beam_center_px", "wavelen
 
 
 def _toml_load(path: Path) -> dict:
-    try:
+    if sys.version_info >= (3, 11):
         import tomllib
-    except ModuleNotFoundError:  # Python 3.10
+    else:  # Python 3.10
         import tomli as tomllib
     from ..errors import ModelFileError
 
@@ -199,7 +200,9 @@ def _reflections(args, geo: dict, cell, orientation) -> tuple[list, list, list]:
     from ..geometry import crossing_angles, rotation_matrix
 
     det = geo["detector"]
-    lines, cautions, marks = [], [], []
+    lines: list[str] = []
+    cautions: list[str] = []
+    marks: list[tuple[int, float, float, str]] = []
     if not args.reflection:
         return lines, cautions, marks
     if cell is None:
@@ -290,6 +293,7 @@ def _draw(png: Path, frame: np.ndarray, title: str, peaks, marks, overwrite: boo
     ax = fig.add_subplot()
     pos = frame[np.isfinite(frame) & (frame > 0)]
     cmap = colormaps["viridis"].with_extremes(bad="0.85")
+    norm: Normalize
     if pos.size:
         hi = float(pos.max())
         norm = LogNorm(vmin=max(float(pos.min()), hi * 1e-6), vmax=hi)

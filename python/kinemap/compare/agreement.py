@@ -108,6 +108,8 @@ def _basis(b: Block, order: int, q_ref: float) -> list[np.ndarray]:
         return []
     cols = [np.ones_like(b.obs)]
     if order >= 1:
+        if b.q is None:
+            raise InvalidInputError("a background above flat needs |q| of every point")
         x = b.q / q_ref
         p = np.ones_like(x)
         for _ in range(order):
@@ -315,7 +317,8 @@ def usable(obs, calc, sigma_obs=None, sigma_calc=None, mask=None) -> np.ndarray:
 
 def array_blocks(obs, calc, sigma_obs, sigma_calc, q, keep) -> Callable[[], Iterator[Block]]:
     """Blocks of at most BLOCK_POINTS points of flattened arrays, filtered by `keep`."""
-    flat = [None if a is None else np.ravel(a) for a in (obs, calc, sigma_obs, sigma_calc, q)]
+    flat_obs, flat_calc = np.ravel(obs), np.ravel(calc)
+    flat = [None if a is None else np.ravel(a) for a in (sigma_obs, sigma_calc, q)]
     kf = np.ravel(keep)
     total = kf.size
 
@@ -323,8 +326,8 @@ def array_blocks(obs, calc, sigma_obs, sigma_calc, q, keep) -> Callable[[], Iter
         for i in range(0, total, BLOCK_POINTS):
             sl = slice(i, min(total, i + BLOCK_POINTS))
             k = kf[sl]
-            o, c, so, sc, qq = (None if a is None else a[sl][k] for a in flat)
-            yield Block(o, c, so, sc, qq)
+            so, sc, qq = (None if a is None else a[sl][k] for a in flat)
+            yield Block(flat_obs[sl][k], flat_calc[sl][k], so, sc, qq)
 
     return gen
 

@@ -26,7 +26,7 @@ import numpy as np
 from .._shared.validate import real_number
 from ..errors import InvalidInputError
 from ..model import as_cell
-from ..qgrid import QGrid
+from ..qgrid import QGrid, RegularGrid
 
 CENTRINGS = ("P", "A", "B", "C", "I", "F", "R")
 _RLU = {"r.l.u.", "rlu", "r.l.u", "hkl", "reciprocal lattice units"}
@@ -154,8 +154,8 @@ def _cell_of(grid: QGrid, ex: BraggExclusion) -> np.ndarray | None:
 
 def _corners(grid: QGrid) -> np.ndarray:
     """q of the corners of a regular grid (or all points of a small point set)."""
-    if not grid.is_regular:
-        return grid.q
+    if not isinstance(grid, RegularGrid):
+        return grid.q_vectors()
     shape = grid.shape
     idx = np.array(np.meshgrid(*[[0, n - 1] for n in shape], indexing="ij")).reshape(len(shape), -1).T
     return grid.origin + idx @ np.asarray(grid.steps).reshape(len(shape), 3) if len(shape) else grid.origin[None]
@@ -182,7 +182,7 @@ class ExclusionTree:
         self.by_rounding = ex.centring is not None and ex.units == "r.l.u." and ex.radius < 0.5
         peaks = []  # in q (Å⁻¹)
         if ex.centring is not None and not self.by_rounding:
-            peaks.append(self._centring_peaks(cell))
+            peaks.append(self._centring_peaks(self._lattice(), ex.centring))
         if ex.hkl is not None:
             peaks.append(self._to_q(ex.hkl))
         if ex.q is not None:
@@ -192,16 +192,21 @@ class ExclusionTree:
         pts = self._metric(q)
         self.tree = cKDTree(pts) if len(pts) else None
 
+    def _lattice(self) -> np.ndarray:
+        """The cell (rows a, b, c in Å), present whenever h, k, l are used (checked in __init__)."""
+        assert self.cell is not None
+        return self.cell
+
     def _to_q(self, hkl: np.ndarray) -> np.ndarray:
-        return 2.0 * np.pi * hkl @ np.linalg.inv(self.cell).T
+        return 2.0 * np.pi * hkl @ np.linalg.inv(self._lattice()).T
 
     def _metric(self, q: np.ndarray) -> np.ndarray:
         """Coordinates in which the exclusion distance is Euclidean."""
         if self.ex.units == "r.l.u.":
-            return np.einsum("ij,kj->ik", q, self.cell / (2.0 * np.pi))
+            return np.einsum("ij,kj->ik", q, self._lattice() / (2.0 * np.pi))
         return q
 
-    def _centring_peaks(self, cell) -> np.ndarray:
+    def _centring_peaks(self, cell: np.ndarray, centring: str) -> np.ndarray:
         hkl_c = _corners(self.grid) @ cell.T / (2.0 * np.pi)
         # the neighbourhood reaches `radius` beyond the grid: widen the box by it (in h, k, l)
         if self.ex.units == "r.l.u.":
@@ -216,7 +221,7 @@ class ExclusionTree:
                                     "centring; give the `hkl` list of the reflections instead")
         axes = [np.arange(a, b + 1) for a, b in zip(lo, hi)]
         hkl = np.stack(np.meshgrid(*axes, indexing="ij"), axis=-1).reshape(-1, 3)
-        hkl = hkl[allowed_by_centring(hkl, self.ex.centring)]
+        hkl = hkl[allowed_by_centring(hkl, centring)]
         return self._to_q(hkl.astype(np.float64))
 
     def excluded(self, q: np.ndarray) -> np.ndarray:
@@ -225,14 +230,15 @@ class ExclusionTree:
         if len(q) == 0:
             return out
         r = self.ex.radius * (1 + 1e-12)
-        if self.by_rounding:
+        centring = self.ex.centring
+        if self.by_rounding and centring is not None:  # (rounding is chosen for centrings only)
             # einsum rather than BLAS: no thread pool for a (M, 3)·(3, 3) product
-            hkl = np.einsum("ij,kj->ik", q, self.cell / (2.0 * np.pi))
+            hkl = np.einsum("ij,kj->ik", q, self._lattice() / (2.0 * np.pi))
             n = np.rint(hkl)
             hkl -= n
             near = np.einsum("ij,ij->i", hkl, hkl) <= r * r
             idx = np.flatnonzero(near)
-            out[idx] = allowed_by_centring(n[idx].astype(np.int64), self.ex.centring)
+            out[idx] = allowed_by_centring(n[idx].astype(np.int64), centring)
         if self.tree is not None:
             d, _ = self.tree.query(self._metric(q), k=1, distance_upper_bound=r)
             out |= np.isfinite(d)
@@ -266,6 +272,9 @@ def bragg_mask(grid: QGrid, exclusion) -> np.ndarray:
     [True, False, False, False, True]
     """
     ex = BraggExclusion.coerce(exclusion)
+    if ex is None:
+        raise InvalidInputError("`exclusion` is missing: give a BraggExclusion or a dict with radius, units and "
+                                "centring/hkl/q")
     tree = ExclusionTree(grid, ex)
     out = np.empty(grid.size, dtype=bool)
     step = 1 << 20

@@ -49,7 +49,7 @@ class Comparison:
         self.resolution = resolution
         self.metadata = metadata
         self.grid = meas.grid
-        self._residual = None
+        self._residual: Pattern | None = None
 
     # figures --------------------------------------------------------------------------
     scale = property(lambda self: self.agreement.scale)

@@ -49,6 +49,7 @@ from .._shared.output import atomic_write
 from .._shared.validate import real_number, whole_number
 from ..errors import InvalidInputError
 from ..pattern import Pattern
+from ..qgrid import QGrid, RegularGrid
 from .bragg import BraggExclusion, bragg_mask
 
 FILLS = ("mean", "median", "linear")
@@ -135,10 +136,13 @@ class DeltaPDF:
         return final
 
 
-def _hkl_axes(grid):
+def _hkl_axes(grid: QGrid) -> tuple[list[str], list[float]]:
     if grid.kind != "hkl":
         raise InvalidInputError(f"a 3D-ΔPDF needs a map on an hkl grid (QGrid.hkl: axes along h, k, l), got a "
                                 f"{grid.kind!r} grid")
+    if not isinstance(grid, RegularGrid) or grid.hkl_steps is None:
+        raise InvalidInputError("a 3D-ΔPDF needs a map on an hkl grid with a cell (QGrid.hkl); this grid of kind "
+                                "'hkl' has none")
     nd = len(grid.shape)
     if nd == 0:
         raise InvalidInputError("a 3D-ΔPDF needs a map, not a single reflection")
@@ -193,7 +197,7 @@ def _fill_holes(values: np.ndarray, holes: np.ndarray, method: str, shell: int) 
     return {"holes": int(n), "holes_filled_from_the_whole_map": fallback}
 
 
-def _largest_sphere(grid) -> float | None:
+def _largest_sphere(grid: RegularGrid) -> float | None:
     """Radius (Å⁻¹) of the largest sphere about q = 0 inside a regular grid, or None when
     q = 0 lies outside it."""
     nd = len(grid.shape)
@@ -260,6 +264,7 @@ def delta_pdf(pattern: Pattern, bragg, *, fill: str = "mean", shell: int = 2, ap
         raise InvalidInputError("`bragg` must say which reflections to punch out (a BraggExclusion)")
     grid = pattern.grid
     letters, steps = _hkl_axes(grid)
+    assert isinstance(grid, RegularGrid) and grid.hkl_origin is not None  # checked by _hkl_axes
     if ex.units == "r.l.u.":
         need = max(abs(s) for s in steps)
     else:
@@ -269,7 +274,7 @@ def delta_pdf(pattern: Pattern, bragg, *, fill: str = "mean", shell: int = 2, ap
                                 "it at least one step, and at least the peak or resolution width")
     check_fits(grid.size * (16 + 8 * 4), f"a 3D-ΔPDF of {grid.size:,} points")
     if symmetry is not None:
-        from .core import _symmetrize, _symmetry_spec
+        from .measured import _symmetrize, _symmetry_spec
 
         pattern = _symmetrize(pattern, _symmetry_spec(symmetry))
     values = np.array(pattern.intensity, dtype=np.float64)

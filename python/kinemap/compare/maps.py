@@ -10,7 +10,7 @@ import numpy as np
 from .._shared.memory import available_memory, check_fits
 from ..errors import InvalidInputError, ModelFileError
 from ..pattern import Pattern
-from ..qgrid import QGrid
+from ..qgrid import QGrid, RegularGrid
 
 #: Points per slab when a comparison walks through its maps.
 SLAB_POINTS = 1 << 21
@@ -155,6 +155,7 @@ def rows_per_slab(grid: QGrid) -> int:
 
 def as_map(value, name: str, **open_options):
     """A Pattern, MapSource or map-file path as a slab map (ArrayMap or MapSource)."""
+    m: ArrayMap | MapSource
     if isinstance(value, Pattern):
         m = ArrayMap(value)
     elif isinstance(value, MapSource):
@@ -220,10 +221,10 @@ def same_grid(a: QGrid, b: QGrid, what: str) -> None:
     """Refuse two grids that do not hold the same q-points (naming the difference)."""
     if tuple(a.shape) != tuple(b.shape):
         raise InvalidInputError(f"{what}: the grids do not match: shape {tuple(a.shape)} vs {tuple(b.shape)}")
-    if a.is_regular != b.is_regular:
+    if isinstance(a, RegularGrid) != isinstance(b, RegularGrid):
         raise InvalidInputError(f"{what}: the grids do not match: one is regular ({a.kind}), the other arbitrary "
                                 f"q-points ({b.kind})")
-    if a.is_regular:
+    if isinstance(a, RegularGrid) and isinstance(b, RegularGrid):
         sa = np.asarray(a.steps, dtype=np.float64).reshape(len(a.shape), 3)
         sb = np.asarray(b.steps, dtype=np.float64).reshape(len(b.shape), 3)
         scale = max(1.0, float(np.abs(a.origin).max()), float(np.abs(sa).max(initial=0.0)) * max(a.shape))
@@ -250,17 +251,19 @@ class SlabQ:
 
     def __init__(self, grid: QGrid):
         self.grid = grid
-        self._rest = None
-        if grid.is_regular and len(grid.shape) > 1:
+        self._rest: np.ndarray | None = None
+        self._regular: RegularGrid | None = None
+        if isinstance(grid, RegularGrid) and len(grid.shape) > 1:
+            self._regular = grid
             tail = tuple(grid.shape[1:])
             st = np.asarray(grid.steps, dtype=np.float64).reshape(len(grid.shape), 3)[1:]
             idx = np.indices(tail).reshape(len(tail), -1).T.astype(np.float64)
             self._rest = idx @ st  # (rows' points, 3)
 
     def get(self, a: int, b: int, per_row: int) -> np.ndarray:
-        g = self.grid
-        if self._rest is None:
-            return g.q_vectors(a * per_row, b * per_row)
+        g = self._regular
+        if g is None or self._rest is None:
+            return self.grid.q_vectors(a * per_row, b * per_row)
         st0 = np.asarray(g.steps, dtype=np.float64).reshape(len(g.shape), 3)[0]
         starts = g.origin + np.arange(a, b, dtype=np.float64)[:, None] * st0
         return (starts[:, None, :] + self._rest[None, :, :]).reshape(-1, 3)

@@ -13,7 +13,7 @@ import numpy as np
 from .._shared.progress import Progress
 from ..errors import InvalidInputError
 from ..pattern import Pattern
-from ..qgrid import QGrid
+from ..qgrid import QGrid, RegularGrid
 from .bragg import BraggExclusion, ExclusionTree
 from .maps import ArrayMap, MapSource, SlabMasks, SlabQ, as_map, rows_per_slab, should_stream
 
@@ -22,12 +22,12 @@ EXCLUSION_REASONS = ("unmeasured", "bad_sigma", "no_model", "user_mask", "bragg"
 
 
 def _q_ref(grid: QGrid) -> float:
-    if grid.is_regular:
+    if isinstance(grid, RegularGrid):
         from .bragg import _corners
 
         c = _corners(grid)
         return float(np.linalg.norm(c, axis=1).max())
-    return float(np.linalg.norm(grid.q, axis=1).max())
+    return float(np.linalg.norm(grid.q_vectors(), axis=1).max())
 
 
 def _symmetry_spec(symmetry) -> tuple[str, dict] | None:

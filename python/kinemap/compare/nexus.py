@@ -228,7 +228,7 @@ def _file_cell(g, f) -> np.ndarray | None:
 
 def _hkl_grid(g, f, path, names, values, cell, fixed):
     nd = len(names)
-    idx = {}
+    idx: dict[int, str] = {}
     for d, name in enumerate(names):
         key = name.lower() if name.lower() in ("h", "k", "l") else None
         if key is None:
@@ -245,7 +245,7 @@ def _hkl_grid(g, f, path, names, values, cell, fixed):
         raise InvalidInputError(f"{str(path)!r}: the axes are in reciprocal-lattice units, but no cell was given and "
                                 "the file has none (NXsample unit_cell_abc/unit_cell_alphabetagamma); give `cell`")
     cell = as_cell(cell)
-    spec = {}
+    spec: dict[str, float | tuple[float, float, int]] = {}
     for d, key in idx.items():
         v = values[d]
         spec[key] = (float(v[0]), float(v[-1]), len(v))
@@ -388,12 +388,13 @@ def open_map(path, group: str | None = None, *, cell=None, fixed: dict | None = 
                 raise ModelFileError(f"{str(p)!r}: errors '{g.name}/{ename}' must be a dataset of shape {sig.shape}")
             _check_signal(e, p, "errors")
             epath = e.name
-        names = _axis_names(g, sig, nd, p)
-        missing = [d for d, n in enumerate(names) if n is None]
+        found = _axis_names(g, sig, nd, p)
+        missing = [d for d, n in enumerate(found) if n is None]
         if missing:
             raise ModelFileError(f"{str(p)!r}: dimension(s) {missing} of '{sig.name}' have no axis (the NXdata 'axes' "
                                  "attribute must name one axis dataset per dimension); a map without axes has no q: "
                                  "give `grid` to read it as a plain dataset")
+        names = [n for n in found if n is not None]  # all of them (checked above)
         values, units, kinds, factors = [], [], [], []
         for d, name in enumerate(names):
             v, u = _axis_values(g, name, sig.shape[d], p)

@@ -30,6 +30,7 @@ import numpy as np
 
 from .._shared.output import atomic_write, check_output
 from ..errors import InvalidInputError
+from ..qgrid import RegularGrid
 from .agreement import DEFINITIONS
 
 
@@ -222,11 +223,6 @@ def save_comparison(cmp, path, *, overwrite: bool = False, shells: int = 10) -> 
 # ---------------------------------------------------------------------------------------
 # picture
 # ---------------------------------------------------------------------------------------
-class _GridOnly:
-    def __init__(self, grid):
-        self.grid = grid
-
-
 def _section(cmp, sel, keep_axes):
     """2-D (or 1-D) sections of measured, fitted model and residual, walking the slabs."""
     grid = cmp.grid
@@ -281,6 +277,7 @@ def comparison_figure(cmp, *, slice_axis=None, slice_index=None, profile=None, s
     if not grid.is_regular and not (grid.ndim == 1 and grid.axis_values):  # 1-D: e.g. a powder pattern
         raise InvalidInputError("a map on arbitrary q-points has no layout to draw")
     nd = len(grid.shape)
+    sel: tuple[slice | int, ...]
     if nd == 1:
         if slice_axis is not None or profile is not None:
             raise InvalidInputError("`slice_axis` and `profile` apply to 2-D and 3-D maps; this map is a line")
@@ -288,8 +285,7 @@ def comparison_figure(cmp, *, slice_axis=None, slice_index=None, profile=None, s
     else:
         if nd == 2 and slice_axis is not None:
             raise InvalidInputError("`slice_axis` applies to 3-D maps only; this map is 2-D")
-        sel, keep_axes, cut = _slice_2d(_GridOnly(grid), slice_axis, slice_index)
-        sel = tuple(sel)
+        sel, keep_axes, cut = _slice_2d(grid, slice_axis, slice_index)
     meas, fit, res = _section(cmp, sel, keep_axes)
     both = np.concatenate([meas[np.isfinite(meas)], fit[np.isfinite(fit)]])
     if both.size == 0:
@@ -322,7 +318,8 @@ def comparison_figure(cmp, *, slice_axis=None, slice_index=None, profile=None, s
         xs, ys = grid.axis_values[keep_axes[0]], grid.axis_values[keep_axes[1]]
         coords = lambda z: (xs, ys, z.T)  # noqa: E731
     else:
-        x, y, _e1, _e2 = _plane_coords(_GridOnly(grid), keep_axes)
+        assert isinstance(grid, RegularGrid)  # other grids pass the check above only as 1-D profiles (drawn above)
+        x, y, _e1, _e2 = _plane_coords(grid, keep_axes)
         coords = lambda z: (x, y, z)  # noqa: E731
     panels = (("m", meas, "measured I_o", norm, cmap), ("c", fit, "model s·I_c + b", norm, cmap),
               ("r", res, "residual I_o − (s·I_c + b)", rnorm, "RdBu_r"))

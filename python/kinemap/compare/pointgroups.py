@@ -416,7 +416,7 @@ def _named_group(ops, system, setting, crystallographic) -> PointGroup:
 @cache
 def _catalogue(system: str, setting: str | None) -> dict:
     """Operation sets -> standard symbol, for the groups of one system and setting."""
-    out = {}
+    out: dict[frozenset, str] = {}
     for sym in POINT_GROUPS + _VARIANTS + ("32", "3m", "-3m"):
         for sett in ([setting] if setting else [None]):
             try:
@@ -432,7 +432,7 @@ def _catalogue(system: str, setting: str | None) -> dict:
 
 @cache
 def _quasi_catalogue(system: str) -> dict:
-    out = {}
+    out: dict[frozenset, str] = {}
     n = system.split("-")[0]
     names = ["m-3-5", "235"] if system == "icosahedral" else \
         [f"{n}/mmm", f"{n}22", f"{n}mm", f"{n}/m", n, f"-{n}", f"-{n}m2", f"-{n}2m"]

@@ -39,7 +39,7 @@ from .._shared.progress import Progress
 from ..errors import InvalidInputError
 from ..model import as_cell
 from ..pattern import Pattern
-from ..qgrid import QGrid
+from ..qgrid import QGrid, RegularGrid
 
 SAMPLINGS = ("auto", "average", "centres", "snap", "points")
 
@@ -59,7 +59,7 @@ class _Forward:
         self.last = done
 
 
-def _regular(origin, steps, shape) -> QGrid:
+def _regular(origin, steps, shape) -> RegularGrid:
     """A line/plane/volume grid in Å⁻¹ with the given origin, steps and shape."""
     edges = [np.asarray(s, dtype=np.float64) * max(n - 1, 0) for s, n in zip(steps, shape)]
     if len(shape) == 1:
@@ -69,7 +69,7 @@ def _regular(origin, steps, shape) -> QGrid:
     return QGrid.volume(origin, edges[0], edges[1], edges[2], shape)
 
 
-def _lattice_steps(grid: QGrid, box) -> tuple[np.ndarray, np.ndarray, list[int]]:
+def _lattice_steps(grid: RegularGrid, box) -> tuple[np.ndarray, np.ndarray, list[int]]:
     """Integer origin and steps of a commensurate grid in box-lattice units, and g per axis."""
     o, st = grid.box_coordinates(box)
     o_int = np.round(o)
@@ -115,6 +115,8 @@ def voxel_average(model, grid: QGrid, *, progress=None, **scatter_options) -> tu
     is commensurate with the model's box (see the module notes)."""
     from ..scatter import scatter
 
+    if not isinstance(grid, RegularGrid):
+        raise InvalidInputError("a voxel average needs a regular grid; this map is on arbitrary q-points")
     box = as_cell(model.box, "model box")
     o_int, d, gs = _lattice_steps(grid, box)
     to_q = 2.0 * np.pi * np.linalg.inv(box)  # q = to_q @ n
@@ -175,7 +177,7 @@ def _nearest_lattice(model, grid: QGrid, scatter_options, progress):
     return pat.intensity, {"scatter": pat.metadata, "sampling": info}
 
 
-def _snap(model, grid: QGrid, scatter_options, progress):
+def _snap(model, grid: RegularGrid, scatter_options, progress):
     box = as_cell(model.box, "model box")
     snapped = grid.snapped(box)
     inten, meta = voxel_average(model, snapped, progress=progress, **scatter_options)
@@ -248,7 +250,7 @@ def model_on_grid(model, grid: QGrid, *, sampling: str = "auto", progress=False,
     if sampling == "points":
         raise InvalidInputError("`sampling`='points' would evaluate a periodic model off its box's reciprocal lattice, "
                                 "where the finite-box ripple dominates; use 'average', 'centres' or 'snap'")
-    if not grid.is_regular:
+    if not isinstance(grid, RegularGrid):
         if sampling not in ("auto", "snap"):
             raise InvalidInputError(f"`sampling`={sampling!r} needs a regular grid; arbitrary q-points take the "
                                     "nearest box-lattice point ('snap')")
@@ -304,7 +306,7 @@ def gaussian_resolution(values: np.ndarray, grid: QGrid, width: float) -> np.nda
     InvalidInputError
         For arbitrary q-points (no grid to convolve on) or a negative width.
     """
-    if not grid.is_regular:
+    if not isinstance(grid, RegularGrid):
         raise InvalidInputError("a resolution convolution needs a regular grid; this map is on arbitrary q-points")
     if not (math.isfinite(width) and width >= 0):
         raise InvalidInputError(f"the resolution width must be >= 0 (1/angstrom), got {width!r}")

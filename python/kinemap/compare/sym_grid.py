@@ -241,7 +241,7 @@ def _sign_product(group, pi) -> list | None:
         _, sg = _perm_parts(g.a)
         for d in range(k):
             options[int(pi[d])].add((int(sg[d]), int(round(float(g.c[d])))))
-    flips = []
+    flips: list[int | None] = []
     size = 1
     for opt in options:
         if opt == {(1, 0)}:
@@ -335,7 +335,7 @@ def accumulate(values0: np.ndarray, avail: np.ndarray, var0: np.ndarray | None, 
             total += tv
             del tv
             if all_avail:
-                factor = np.ones((), dtype=count.dtype)
+                factor: np.ndarray = np.ones((), dtype=count.dtype)
                 for e, cf in enumerate(flips):
                     f = np.ones(int(n[e]), dtype=count.dtype)
                     if cf is not None:
@@ -348,7 +348,7 @@ def accumulate(values0: np.ndarray, avail: np.ndarray, var0: np.ndarray | None, 
                 _flip_all(ta, flips)
                 count += ta
                 del ta
-            if var is not None:
+            if var is not None and var0 is not None:  # (var is made when var0 is given)
                 tq = var0.copy() if same else _transposed(var0, inv)
                 _flip_all(tq, flips)
                 var += tq
@@ -369,8 +369,10 @@ def accumulate(values0: np.ndarray, avail: np.ndarray, var0: np.ndarray | None, 
                     if all_avail:
                         count[out_sl] += 1
                     else:
+                        assert ta is not None  # made unless every point is available
                         count[out_sl] += ta[src_sl]
                     if var is not None:
+                        assert tq is not None  # made with var
                         var[out_sl] += tq[src_sl]
             del tv, ta, tq
         for g in group:
@@ -436,7 +438,7 @@ def _int_by_rows(g, n, flat_v, flat_a, flat_q, all_avail, total, count, stab, va
     strides = [int(np.prod(n[d + 1:])) for d in range(k)]
     b = [int(sum(int(a[e, d]) * strides[d] for d in range(k))) for e in range(k)]
     c0 = int(sum(int(c[d]) * strides[d] for d in range(k)))
-    dep = []
+    dep: list[int | None] = []
     for d in range(k):
         nz = [e for e in inner if a[e, d] != 0]
         dep.append(nz[0] if nz else None)
@@ -484,15 +486,16 @@ def _int_by_rows(g, n, flat_v, flat_a, flat_q, all_avail, total, count, stab, va
         og = dict(zip(inner, np.ogrid[tuple(slice(lo[e], hi[e] + 1) for e in inner)]))
         fixed = np.bool_(True)
         for d in range(k):
-            lhs = int(c[d]) + t * int(a[o, d]) + (0 if dep[d] is None else int(a[dep[d], d]) * og[dep[d]])
+            e_d = dep[d]
+            lhs = int(c[d]) + t * int(a[o, d]) + (0 if e_d is None else int(a[e_d, d]) * og[e_d])
             rhs = t if d == o else og[d]
             fixed = fixed & (lhs == rhs)
             if not np.any(fixed):
                 break
         else:
-            nz = np.nonzero(np.broadcast_to(fixed, shape))
-            if len(nz[0]):
-                idx = tuple(t if e == o else nz[inner.index(e)] + lo[e] for e in range(k))
+            hits = np.nonzero(np.broadcast_to(fixed, shape))
+            if len(hits[0]):
+                idx = tuple(t if e == o else hits[inner.index(e)] + lo[e] for e in range(k))
                 stab[idx] += 1
     return True
 
@@ -580,15 +583,15 @@ def _slab(g, r0, r1, n, tol, values0, flat_v, flat_a, flat_q, var0, flat_a_all, 
     # slabs along axis 0 of C-ordered arrays are contiguous, so the reshapes are views
     total[sl].reshape(-1)[idx] += v_int[good]
     count[sl].reshape(-1)[idx] += 1
-    if var is not None:
+    if var is not None and q_int is not None:  # (q_int is made with var)
         var[sl].reshape(-1)[idx] += q_int[good]       # Σ w σ² >= Σ w² σ²: an upper bound
     if second_diff is not None and err is not None:
         near = nearest[good]
-        e = np.zeros(len(near))
+        estimate = np.zeros(len(near))
         for d in range(k):
             t = frac[d][good]
-            e += 0.5 * t * (1.0 - t) * second_diff[d].reshape(-1)[near]
-        err[sl].reshape(-1)[idx] += e
+            estimate += 0.5 * t * (1.0 - t) * second_diff[d].reshape(-1)[near]
+        err[sl].reshape(-1)[idx] += estimate
 
 
 def second_differences(values0: np.ndarray, avail: np.ndarray) -> list[np.ndarray]:

@@ -76,7 +76,7 @@ class RowIndex:
         if not len(self.rows):
             return out
         if self.encoded:
-            inside = ((rows >= self.lo) & (rows <= self.hi)).all(axis=1)
+            inside = np.asarray(((rows >= self.lo) & (rows <= self.hi)).all(axis=1))
             keys = self._encode(np.where(inside[:, None], rows, self.lo))
         else:
             inside = np.ones(len(rows), dtype=bool)
@@ -97,7 +97,8 @@ def list_actions(ops: np.ndarray, rows: np.ndarray, kernel) -> tuple[list[np.nda
     canon = canonical_indices(rows, kernel)
     index = RowIndex(canon)
     seen: dict[bytes, int] = {}
-    positions, members = [], []
+    positions: list[np.ndarray] = []
+    members: list[list[int]] = []
     for k, t in enumerate(ops):
         t = np.asarray(t, dtype=np.int64)
         key = t.tobytes()
@@ -125,7 +126,7 @@ def accumulate_list(values0: np.ndarray, avail: np.ndarray, var0: np.ndarray | N
         total += np.where(av > 0, values0[p], 0.0)
         count += av.astype(np.uint16)
         stab += (pos == own).astype(np.uint16)
-        if var is not None:
+        if var is not None and var0 is not None:  # (var is made when var0 is given)
             var += np.where(av > 0, var0[p], 0.0)
     return Sums(total, count, stab, var, None)
 

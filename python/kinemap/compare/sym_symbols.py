@@ -227,7 +227,7 @@ def read_symbol(symbol: str, setting) -> _Reading:
         raise InvalidInputError(
             f"cannot read point-group symbol {shown!r}: {n}/m is written {better} in Hermann–Mauguin notation")
     chunks = raw.split()
-    readings: list[_Token] = [[]]
+    readings: list[list[_Token]] = [[]]
     for ch in chunks:
         parts = _tokenisations(ch)
         if not parts:

@@ -26,6 +26,7 @@ from .._shared.progress import Progress
 from .._shared.validate import flag, one_of, real_number
 from ..errors import InvalidInputError
 from ..pattern import Pattern
+from ..qgrid import RegularGrid
 from .pointgroups import PointGroup, describe_operation, point_group
 from .sym_grid import accumulate, active_axes, check_memory, grid_actions, second_differences
 from .sym_lists import accumulate_list, as_index_rows, list_actions
@@ -149,6 +150,7 @@ def symmetrize(pattern: Pattern, group, *, setting: str | None = None, cell=None
                 "higher-dimensional indices of a quasicrystal scheme given as `scheme`) to find images exactly")
         return _symmetrize_list(pattern, g, intensity, sigma, indices, scheme, cell, cell_tol, anomalous_check,
                                 progress, group)
+    assert isinstance(grid, RegularGrid)  # every other kind of grid is regular
     if indices is not None or scheme is not None:
         raise InvalidInputError("`indices` and `scheme` apply to maps on lists of points; this map is on a "
                                 f"regular {grid.kind} grid")

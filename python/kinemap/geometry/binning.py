@@ -18,7 +18,7 @@ from .._shared.memory import check_fits
 from .._shared.progress import Progress
 from .._shared.validate import flag, real_array, real_number, whole_number
 from ..errors import InvalidInputError
-from ..qgrid import QGrid
+from ..qgrid import QGrid, RegularGrid
 from .detector import Detector, _polarization, _q_of_positions, _solid_angle
 from .orientation import check_rotation, rotation_matrix, unit_vector
 
@@ -30,21 +30,23 @@ class _GridIndexer:
     def __init__(self, grid: QGrid, thickness):
         if not isinstance(grid, QGrid):
             raise InvalidInputError(f"`grid` must be a kinemap.QGrid, got {type(grid).__name__}")
-        if not grid.is_regular or not grid.shape:
+        if not isinstance(grid, RegularGrid) or not grid.shape:
             raise InvalidInputError("binning needs a regular grid with at least one axis (QGrid.hkl, .volume, .plane, "
                                     f".line), got kind {grid.kind!r} with shape {tuple(grid.shape)}")
-        self.hkl = grid.kind == "hkl"
-        if self.hkl:
-            self.cell = grid.cell
-            origin, steps = np.asarray(grid.hkl_origin, float), np.asarray(grid.hkl_steps, float).reshape(-1, 3)
+        # In h, k, l when the grid has a cell; a grid without one (even of kind "hkl", from
+        # QGrid.regular) has its axes in Å⁻¹ and is binned in Å⁻¹.
+        self.cell = grid.cell if grid.kind == "hkl" else None
+        if self.cell is not None and grid.hkl_origin is not None and grid.hkl_steps is not None:
+            origin, steps = np.asarray(grid.hkl_origin, np.float64), np.asarray(grid.hkl_steps, np.float64).reshape(-1, 3)
         else:
-            origin, steps = np.asarray(grid.origin, float), np.asarray(grid.steps, float).reshape(-1, 3)
+            origin, steps = np.asarray(grid.origin, np.float64), np.asarray(grid.steps, np.float64).reshape(-1, 3)
         d = steps.shape[0]
         if np.linalg.matrix_rank(steps) < d:
             raise InvalidInputError("the grid has an axis with zero step (or dependent axes); give every ranged axis "
                                     "at least 2 points")
         self.shape = tuple(int(x) for x in grid.shape)
-        unit = "r.l.u." if self.hkl else "1/angstrom"
+        unit = "r.l.u." if self.cell is not None else "1/angstrom"
+        self.half: float | None
         if d < 3:
             if thickness is None:
                 raise InvalidInputError(f"a grid with {d} axis(es) needs `thickness` ({unit}): how far from its "
@@ -65,7 +67,7 @@ class _GridIndexer:
 
     def __call__(self, q: np.ndarray) -> np.ndarray:
         """Flat voxel index of each q (..., 3), −1 where it misses the grid."""
-        c = q @ self.cell.T / (2.0 * np.pi) if self.hkl else q
+        c = q @ self.cell.T / (2.0 * np.pi) if self.cell is not None else q
         coef = (c - self.origin) @ self.inv
         idx = np.rint(coef[..., :self.d]).astype(np.int64)
         ok = np.ones(q.shape[:-1], dtype=bool)

@@ -232,7 +232,7 @@ def _read_fabio(paths: list, angles) -> FrameStack:
                           "pip install kinemap[images]") from None
     if not paths:
         raise InvalidInputError("the list of image files is empty")
-    index = []  # (file, frame in file)
+    index: list[tuple[str, int]] = []  # (file, frame in file)
     shape = None
     for name in paths:
         if not os.path.exists(name):

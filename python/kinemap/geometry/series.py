@@ -119,7 +119,7 @@ def _intensity_function(model, probe, probe_options, threads, chunk_atoms, caugh
     from ..scatter import DEFAULT_CHUNK_ATOMS, scatter
 
     probe_obj = get_probe(probe, **probe_options)
-    first = {}
+    first: dict = {}
 
     def from_model(q):
         with warnings.catch_warnings(record=True) as rec:
@@ -354,7 +354,7 @@ def predict_reflections(cell, det, *, axis, angles, width=None, orientation=None
     keep = (qn > 0) & (qn <= q_lim)
     hkl, q = hkl[keep], q[keep]
     ang = crossing_angles(q, wavelength=det.wavelength, axis=a, orientation=r0)   # (N, 2)
-    out = {"hkl": [], "angle": [], "frame": [], "row": [], "col": [], "q_lab": []}
+    out: dict[str, list] = {"hkl": [], "angle": [], "frame": [], "row": [], "col": [], "q_lab": []}
     lo, hi = phis - dphi / 2.0, phis + dphi / 2.0
     for col_i in range(2):
         phi = ang[:, col_i]

@@ -21,6 +21,7 @@ from __future__ import annotations
 from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -28,6 +29,9 @@ from ..errors import InvalidInputError, ModelFileError
 from ..model import AtomSourceBase, Groups, Model, as_cell, resolve_box_and_cell
 from ._species import LABEL_SCAN_ATOMS, SPECIES_HINT, SpeciesSupply, SpeciesTable, parse_species_map
 from ._units import length_scale
+
+if TYPE_CHECKING:
+    from typing_extensions import Self  # typing.Self from Python 3.11
 
 #: Atoms per chunk when a reader is asked without a size (about 50 MB of arrays).
 DEFAULT_READ_ATOMS = 1 << 20
@@ -203,7 +207,7 @@ class FileSource(AtomSourceBase):
     _label_cache: list[str] | None = None
 
     # -- options ------------------------------------------------------------------------
-    def _setup(self, opts: SourceOptions) -> FileSource:
+    def _setup(self, opts: SourceOptions) -> Self:
         """Apply the user's options (species, cell, supercell) to this frame."""
         self._opts = opts
         if opts.cell is not None or opts.supercell is not None:

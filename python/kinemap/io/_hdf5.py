@@ -12,11 +12,15 @@ inside the file) and refuses the three ways out of the file unless ``allow_exter
 from __future__ import annotations
 
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from .._shared.validate import file_name
 from ..errors import ModelFileError
+
+if TYPE_CHECKING:
+    import h5py
 
 #: Entries read whole from small datasets (names, cells of one frame): refuse more.
 SMALL_DATASET_LIMIT = 1 << 20
@@ -33,7 +37,7 @@ def h5py_module():
     return h5py
 
 
-def open_h5(path) -> object:
+def open_h5(path) -> h5py.File:
     """Open an HDF5 file for reading, turning HDF5's errors into clear ones.
 
     Raises

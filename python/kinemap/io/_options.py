@@ -4,6 +4,7 @@
 from __future__ import annotations
 
 import re
+from typing import TypeVar
 
 import numpy as np
 
@@ -11,6 +12,8 @@ from ..errors import InvalidInputError
 from ..model import as_cell, cell_from_parameters, supercell_matrix
 from ._base import FileSource, SourceOptions
 from ._species import species_supply
+
+_Source = TypeVar("_Source", bound=FileSource)
 
 
 def _numbers(text: str, name: str) -> list[float]:
@@ -42,7 +45,8 @@ def parse_cell(cell) -> np.ndarray | None:
     if arr.shape == (6,):
         return cell_from_parameters(*arr.tolist())
     if arr.shape == (3,):
-        cell_from_parameters(*arr.tolist(), 90.0, 90.0, 90.0)  # refuses lengths that are not positive
+        a, b, c = arr.tolist()
+        cell_from_parameters(a, b, c, 90.0, 90.0, 90.0)  # refuses lengths that are not positive
         return np.diag(arr)  # exact zeros off the diagonal
     if arr.shape == (3, 3):
         return as_cell(arr, "cell")
@@ -72,8 +76,8 @@ def parse_supercell(supercell) -> np.ndarray | None:
     return supercell_matrix(supercell)
 
 
-def configure(source: FileSource, *, species=None, cell=None, supercell=None, species_map=None,
-              allow_external: bool = False) -> FileSource:
+def configure(source: _Source, *, species=None, cell=None, supercell=None, species_map=None,
+              allow_external: bool = False) -> _Source:
     """Attach the user's ``species``, ``cell`` and ``supercell`` to a freshly opened source."""
     opts = SourceOptions(
         cell=parse_cell(cell),

@@ -54,10 +54,10 @@ class SpeciesTable:
     """
 
     def __init__(self, codes: Sequence[int], labels: Sequence[str], where: str):
-        codes = np.asarray(list(codes), dtype=np.int64)
-        order = np.argsort(codes, kind="stable")
-        self.codes = codes[order]
-        self.labels = [str(labels[i]) for i in order]
+        code_array = np.asarray(list(codes), dtype=np.int64)
+        order = np.argsort(code_array, kind="stable")
+        self.codes = code_array[order]
+        self.labels = [str(labels[int(i)]) for i in order]
         self.where = where
         if len(np.unique(self.codes)) != len(self.codes):
             raise ModelFileError(f"{where}: species codes are not unique: {self.codes.tolist()}")
@@ -190,9 +190,9 @@ class LabelColumn:
             self.kind = "strings"
         elif dtype.kind in "iu":
             self.kind = "integer"
-            mapping = user or names
-            if mapping:
-                self.table = SpeciesTable(list(mapping), list(mapping.values()), where)
+            named = user or names
+            if named:
+                self.table = SpeciesTable(list(named), list(named.values()), where)
         else:
             raise ModelFileError(f"{where} must hold an enumeration, integer codes or strings, got type {dtype}")
 
@@ -222,6 +222,7 @@ class LabelColumn:
         miss = self.missing()
         if miss:
             raise ModelFileError(miss)
+        assert self.table is not None  # enumerations and named integer codes have one (else `miss`)
         return self.table.label_index(raw, start, frame), self.table.distinct
 
     def chunk(self, f, frame: int, start: int, stop: int) -> tuple[np.ndarray, list[str]]:
@@ -272,15 +273,31 @@ class SpeciesSupply:
         self.n_frames = n_frames
         self._scanned: dict[int, list[str]] = {}
 
+    # -- what each kind holds (set by species_supply) ---------------------------------
+    def _one(self) -> str:
+        assert self.label is not None  # kind "one"
+        return self.label
+
+    def _per_atom(self) -> tuple[np.ndarray, list[str]]:
+        assert self.codes is not None and self.distinct is not None  # kind "per-atom"
+        return self.codes, self.distinct
+
+    def _dataset(self) -> tuple[LabelColumn, Path]:
+        assert self.column is not None and self.path is not None  # kind "dataset"
+        return self.column, self.path
+
     # -- checks when applied to a frame ------------------------------------------------
     def check_atoms(self, n_atoms: int, frame: int, where: str) -> None:
-        if self.kind == "per-atom" and len(self.codes) != n_atoms:
-            raise InvalidInputError(f"`species` gives {len(self.codes):,} labels ({self.source}) but {where} has "
-                                    f"{n_atoms:,} atoms in frame {frame}; give one label per atom")
+        if self.kind == "per-atom":
+            codes, _ = self._per_atom()
+            if len(codes) != n_atoms:
+                raise InvalidInputError(f"`species` gives {len(codes):,} labels ({self.source}) but {where} has "
+                                        f"{n_atoms:,} atoms in frame {frame}; give one label per atom")
         if self.kind == "dataset":
-            n = self.column.shape[-1] if self.column.shape else 0
+            column, _ = self._dataset()
+            n = column.shape[-1] if column.shape else 0
             if n != n_atoms:
-                raise ModelFileError(f"`species` dataset {self.column.path} has {n:,} labels per frame but {where} "
+                raise ModelFileError(f"`species` dataset {column.path} has {n:,} labels per frame but {where} "
                                      f"has {n_atoms:,} atoms in frame {frame}")
 
     def _frame(self, frame: int) -> int:
@@ -290,43 +307,47 @@ class SpeciesSupply:
         """(index into labels, labels) of atoms ``start .. stop-1``; `f` is the open HDF5
         model file (or None)."""
         if self.kind == "one":
-            return np.zeros(stop - start, dtype=np.int64), [self.label]
+            return np.zeros(stop - start, dtype=np.int64), [self._one()]
         if self.kind == "per-atom":
-            return self.codes[start:stop].astype(np.int64), self.distinct
+            codes, distinct = self._per_atom()
+            return codes[start:stop].astype(np.int64), distinct
+        column, path = self._dataset()
         if f is None:
-            with open_h5(self.path) as g:
-                return self.column.chunk(g, self._frame(frame), start, stop)
-        return self.column.chunk(f, self._frame(frame), start, stop)
+            with open_h5(path) as g:
+                return column.chunk(g, self._frame(frame), start, stop)
+        return column.chunk(f, self._frame(frame), start, stop)
 
     def labels(self, frame: int, n_atoms: int) -> list[str]:
         """Sorted labels present (exact; a dataset is read once per frame, or its declared
         labels are used beyond :data:`LABEL_SCAN_ATOMS` atoms)."""
         if self.kind == "one":
-            return [self.label]
+            return [self._one()]
         if self.kind == "per-atom":
-            return list(self.distinct)
+            return list(self._per_atom()[1])
+        column, path = self._dataset()
         fr = self._frame(frame)
         if fr not in self._scanned:
-            miss = self.column.missing()
+            miss = column.missing()
             if miss:
                 raise ModelFileError(miss)
-            declared = self.column.declared()
+            declared = column.declared()
             if declared is not None and n_atoms > LABEL_SCAN_ATOMS:
                 self._scanned[fr] = sorted(declared)
             else:
-                with open_h5(self.path) as g:
-                    self._scanned[fr] = self.column.scan(g, fr, n_atoms)
+                with open_h5(path) as g:
+                    self._scanned[fr] = column.scan(g, fr, n_atoms)
         return list(self._scanned[fr])
 
     def summary(self, frame: int, n_atoms: int, scan_limit: int) -> tuple[list[str] | None, str | None]:
         """(labels, note) for ``describe()``, reading at most `scan_limit` atoms."""
         if self.kind != "dataset" or n_atoms <= scan_limit:
             return self.labels(frame, n_atoms), f"from {self.source}"
-        declared = self.column.declared()
+        column, path = self._dataset()
+        declared = column.declared()
         if declared is not None:
             return sorted(declared), f"from {self.source}: labels it declares (atoms not counted)"
-        with open_h5(self.path) as g:
-            idx, labels = self.column.chunk(g, self._frame(frame), 0, scan_limit)
+        with open_h5(path) as g:
+            idx, labels = column.chunk(g, self._frame(frame), 0, scan_limit)
         present = [lab for lab, c in zip(labels, np.bincount(idx, minlength=len(labels))) if c]
         return sorted(present), f"from {self.source}: species counted over the first {scan_limit:,} of {n_atoms:,} atoms"
 

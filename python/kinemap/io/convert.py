@@ -169,7 +169,8 @@ def convert(source_or_path, output, *, frames=None, species_map=None, format: st
     has_cell = boxes[0] is not None
     if has_cell and any(c is None for c in boxes):
         raise ModelFileError(f"{base.path}: some frames have a box and some do not")
-    td_box = has_cell and any(not np.allclose(c, boxes[0], rtol=0, atol=1e-12) for c in boxes)
+    box0 = boxes[0]
+    td_box = box0 is not None and any(c is not None and not np.allclose(c, box0, rtol=0, atol=1e-12) for c in boxes)
     desc = first.describe()
     boundary = desc.get("boundary") or ("periodic" if first.box is not None else "none")
     if isinstance(boundary, list) and len(boundary) == 2:
@@ -199,18 +200,21 @@ def _write_frames(w, base, chosen, srcs, boxes, labels, desc, with_ids, bar) -> 
         d = src.describe() if k else desc
         w.add_frame(None, cell=boxes[k], step=d.get("step", f), time=d.get("time", d.get("step", f)))
         if with_ids and k == 0:
-            ids = [i for _, i in src.iter_chunks_with_ids(_CONVERT_CHUNK)]
-            if ids and ids[0] is not None:
-                id_sorted = np.sort(np.concatenate(ids))
+            all_ids = [i for _, i in src.iter_chunks_with_ids(_CONVERT_CHUNK)]
+            if all_ids and all_ids[0] is not None:
+                id_sorted = np.sort(np.concatenate(all_ids))
                 if len(np.unique(id_sorted)) != n:
                     raise ModelFileError(f"{base.path}: frame {f} has repeated atom ids")
-            del ids
+            del all_ids
         it = src.iter_chunks_with_ids(_CONVERT_CHUNK) if with_ids else ((m, None) for m in src.iter_chunks(_CONVERT_CHUNK))
         start = 0
         occ_default = True
         for chunk, ids in it:
             m = chunk.n_atoms
             if id_sorted is not None:
+                if ids is None:
+                    raise ModelFileError(f"{base.path}: frame {f} has no atom ids but frame {chosen[0]} has them; "
+                                         "give every frame an id column (or none)")
                 rows = np.searchsorted(id_sorted, ids)
                 rows_c = np.minimum(rows, n - 1)
                 bad = id_sorted[rows_c] != ids
@@ -236,6 +240,7 @@ def _write_frames(w, base, chosen, srcs, boxes, labels, desc, with_ids, bar) -> 
                     codes0 = np.zeros(n, dtype=np.int32)
                 codes0[rows] = code_of[lab_codes]
             else:
+                assert codes0 is not None  # filled by frame 0
                 diff = codes0[rows] != lab_codes
                 if diff.any():
                     j = int(np.flatnonzero(diff)[0])

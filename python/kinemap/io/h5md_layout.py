@@ -210,7 +210,7 @@ class H5MDIndex:
     def _read_box(self, f, g, gpath, where):
         h5py = h5py_module()
         self.boundary = None
-        self.edges = None  # _Element (per-frame reads) or a fixed 3x3 cell
+        self.edges: _Element | str | None = None  # _Element (per-frame reads), or "attribute" (a fixed cell)
         self.fixed_cell = None
         self.box_note = ""
         box = self._get(f, f"{gpath}/box")
@@ -292,6 +292,8 @@ class H5MDIndex:
         if self.fixed_cell is not None:
             return self.fixed_cell
         el = self.edges
+        # edges given as an attribute or a time-independent dataset make a fixed cell
+        assert isinstance(el, _Element) and el.n_frames is not None
         i = frame if el.n_frames > 1 else 0
         with open_h5(self.path) as f:
             try:

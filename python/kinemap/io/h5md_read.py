@@ -45,6 +45,7 @@ from ._base import (
     normalise_frame,
 )
 from ._hdf5 import open_h5
+from ._species import LabelColumn
 from .h5md_layout import LAYOUT_ERRORS, H5MDIndex
 
 
@@ -83,24 +84,31 @@ class H5MDSource(FileSource):
         col = self._ix.species_column
         return None if col is None else col.declared()
 
+    def _column(self) -> LabelColumn:
+        """The species element: present whenever labels are read from the file (without it,
+        :meth:`_missing_species` says why and nothing is read)."""
+        col = self._ix.species_column
+        assert col is not None
+        return col
+
     def _species_frame(self) -> int:
         col = self._ix.species_column
         return self.frame if (col is not None and col.framed) else 0
 
     def _scan_labels(self) -> list[str]:
         ix = self._ix
-        static = not ix.species_column.framed
+        static = not self._column().framed
         if static and ix.static_labels is not None:
             return list(ix.static_labels)
         with self._open() as f:
-            labels = ix.species_column.scan(f, self._species_frame(), self.n_atoms)
+            labels = self._column().scan(f, self._species_frame(), self.n_atoms)
         if static:
             ix.static_labels = list(labels)
         return labels
 
     def _labels_in_first(self, n: int) -> list[str]:
         with self._open() as f:
-            idx, labels = self._ix.species_column.chunk(f, self._species_frame(), 0, min(n, self.n_atoms))
+            idx, labels = self._column().chunk(f, self._species_frame(), 0, min(n, self.n_atoms))
         return [lab for lab, c in zip(labels, np.bincount(idx, minlength=len(labels))) if c]
 
     # -- reading ---------------------------------------------------------------------
@@ -159,6 +167,7 @@ class H5MDSource(FileSource):
                     p[:, : ix.dim] *= ix.scale
                     check_chunk(p, start, f"{where}: {pos_el.value_path} (in angstrom)", self.frame)
                 if ix.image is not None:
+                    assert self._edges is not None  # the index refuses unwrap=True without box edges
                     img = self._per_atom(f, ix.image, start, stop).astype(np.float64)
                     if not np.isfinite(img).all():
                         j = int(np.flatnonzero(~np.isfinite(img).all(axis=1))[0])
@@ -168,9 +177,8 @@ class H5MDSource(FileSource):
                     full[:, : ix.dim] = img
                     p += full @ self._edges
                     check_chunk(p, start, f"{where}: {pos_el.value_path} + {ix.image.value_path}", self.frame)
-                col = ix.species_column
                 lab_idx, labels = self._chunk_labels(
-                    start, stop, f, lambda: col.chunk(f, self._species_frame(), start, stop))
+                    start, stop, f, lambda: self._column().chunk(f, self._species_frame(), start, stop))
                 occ = self._per_atom(f, ix.occupancy, start, stop)
                 if occ is not None:
                     occ = occ.astype(np.float64)

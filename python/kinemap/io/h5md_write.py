@@ -416,7 +416,7 @@ def write_h5md(path, frames: Model | Iterable[Model], *, steps=None, times=None,
     def box_of(m):
         return m.box if m.box is not None else m.cell
 
-    td_box = has_cell and any(box_of(m) is None or not np.allclose(box_of(m), cells) for m in models)
+    td_box = cells is not None and any(box_of(m) is None or not np.allclose(box_of(m), cells) for m in models)
     for i, m in enumerate(models[1:], start=1):
         if m.n_atoms != first.n_atoms:
             raise InvalidInputError(f"frame {i} has {m.n_atoms} atoms but frame 0 has {first.n_atoms}; "

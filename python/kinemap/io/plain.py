@@ -124,7 +124,8 @@ class _PlainIndex:
         # species
         sp = self.paths["species"]
         sds = self._get(f, "species")
-        self.species_column = None
+        self.species_column: LabelColumn | None = None
+        self.species_missing: str | None
         if sds is not None:
             if not isinstance(sds, h5py.Dataset):
                 raise ModelFileError(f"{where}: /{sp} must be a dataset")
@@ -227,16 +228,23 @@ class PlainSource(FileSource):
         col = self._ix.species_column
         return None if col is None else col.declared()
 
+    def _column(self) -> LabelColumn:
+        """The species dataset: present whenever labels are read from the file (without it,
+        :meth:`_missing_species` says why and nothing is read)."""
+        col = self._ix.species_column
+        assert col is not None
+        return col
+
     def _species_frame(self) -> int:
-        return self.frame if self._ix.species_column.framed else 0
+        return self.frame if self._column().framed else 0
 
     def _scan_labels(self) -> list[str]:
         with open_h5(self.path) as f:
-            return self._ix.species_column.scan(f, self._species_frame(), self.n_atoms)
+            return self._column().scan(f, self._species_frame(), self.n_atoms)
 
     def _labels_in_first(self, n: int) -> list[str]:
         with open_h5(self.path) as f:
-            idx, labels = self._ix.species_column.chunk(f, self._species_frame(), 0, min(n, self.n_atoms))
+            idx, labels = self._column().chunk(f, self._species_frame(), 0, min(n, self.n_atoms))
         return [lab for lab, c in zip(labels, np.bincount(idx, minlength=len(labels))) if c]
 
     def iter_range(self, start: int, stop: int, chunk_atoms: int):
@@ -261,9 +269,8 @@ class PlainSource(FileSource):
                 elif ix.scale != 1.0:
                     p = p * ix.scale
                 check_chunk(p, start, f"{self.path}: /{pp}", self.frame)
-                col = ix.species_column
                 idx, labels = self._chunk_labels(start, stop, f,
-                                                 lambda: col.chunk(f, self._species_frame(), start, stop))
+                                                 lambda: self._column().chunk(f, self._species_frame(), start, stop))
                 occ = b = u = None
                 if "occupancy" in ix.optional:
                     path, framed = ix.optional["occupancy"]

@@ -29,6 +29,7 @@ from __future__ import annotations
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
@@ -105,6 +106,10 @@ class _TextIndex:
             raise ModelFileError(f"{self.path}: not a text file ({exc})") from None
         if not self.frames:
             raise ModelFileError(f"{self.path}: no frames found in this {self.fmt} file")
+
+    def _scan(self, fh) -> None:
+        """Index the frames of the open file `fh` into ``self.frames`` (one per format)."""
+        raise NotImplementedError
 
     def _err(self, line: int, msg: str) -> ModelFileError:
         return ModelFileError(f"{self.path}, line {line}: {msg}")
@@ -395,12 +400,14 @@ class TextSource(FileSource):
             miss = self._missing_species()
             if miss:
                 raise ModelFileError(miss)
+            table = self._ix.table
+            assert table is not None  # (else `miss`)
             try:
                 codes = col.astype(np.int64)
             except ValueError:
                 raise ModelFileError(f"{self.path}, frame {self.frame}: species types near line {fr.line + done} "
                                      "are not whole numbers") from None
-            return self._ix.table.label_index(codes, done, self.frame), self._ix.table.distinct
+            return table.label_index(codes, done, self.frame), table.distinct
         uniq, inv = np.unique(col, return_inverse=True)
         return inv.reshape(-1), [u.decode("utf-8", "replace") for u in uniq]
 
@@ -451,7 +458,7 @@ class TextSource(FileSource):
 
     def _extra_description(self) -> dict:
         fr = self._fr
-        d = {"boundary": fr.pbc, "first_line": fr.line}
+        d: dict[str, Any] = {"boundary": fr.pbc, "first_line": fr.line}
         if fr.step is not None:
             d["step"] = fr.step
         if fr.time is not None:

@@ -131,6 +131,7 @@ class FrameScan:
     hi: np.ndarray
     chunk_bounds: list  # per chunk: (lo, hi) Cartesian, or fractional intervals (periodic)
     group_occupancy: dict  # (label, B) -> Σ o
+    aniso: bool = False  # some atoms had anisotropic displacements (replaced by their B)
 
 
 def scan_frame(source, box, chunk_atoms: int) -> FrameScan:
@@ -138,7 +139,7 @@ def scan_frame(source, box, chunk_atoms: int) -> FrameScan:
     n = 0
     lo = np.full(3, np.inf)
     hi = np.full(3, -np.inf)
-    bounds = []
+    bounds: list = []  # per chunk: None (no atoms), (lo, hi) or fractional intervals
     group_occ: dict = {}
     inv = None if box is None else np.linalg.inv(box)
     aniso = False
@@ -165,9 +166,7 @@ def scan_frame(source, box, chunk_atoms: int) -> FrameScan:
     # occupancy sums as exact integers (units of 2⁻³²): independent of the chunking
     occ_sum = sum(group_occ.values()) / OCC_SCALE
     group_occ = {k: v / OCC_SCALE for k, v in group_occ.items()}
-    scan = FrameScan(n, occ_sum, box, lo, hi, bounds, group_occ)
-    scan.aniso = aniso  # type: ignore[attr-defined]
-    return scan
+    return FrameScan(n, occ_sum, box, lo, hi, bounds, group_occ, aniso)
 
 
 OCC_SCALE = float(1 << 32)
@@ -370,6 +369,7 @@ def collect(sources: list, frames: list, *, box, r_max: float | None, dr: float,
             occ[table.index[key]] += s
         group_occ += occ
         if periodic:
+            assert uniform is not None and shells is not None  # made for periodic models
             vol = abs(float(np.linalg.det(b)))
             inv_v += 1.0 / vol
             for p, (g, hh) in enumerate(table.pairs()):
@@ -415,6 +415,7 @@ def _stream_pairs(h, src, scan: FrameScan, table: GroupTable, cutoff, box, threa
                 prog.add(1)
                 continue
             if chunk.n_atoms and not _far_apart(scan.chunk_bounds[a], scan.chunk_bounds[idx], cutoff, box):
+                assert held is not None  # chunk a (idx > a here) had atoms
                 h.add_between(*held, np.ascontiguousarray(chunk.positions), _global_index(chunk, table),
                               np.ascontiguousarray(chunk.occupancy, dtype=np.float64), threads=threads)
             prog.add(1)

@@ -156,12 +156,13 @@ class PairDistribution:
 
     def coordination(self, r_min: float, r_max: float) -> float:
         """∫ 4πr²ρ₀ g(r) dr from `r_min` to `r_max` (trapezoid rule on the r grid)."""
-        if self.g is None:
+        radial = self.radial
+        if radial is None:  # (no g(r))
             raise ValueError("this pair distribution has no g(r)")
         from scipy.integrate import trapezoid
 
         sel = (self.r >= r_min) & (self.r <= r_max)
-        return float(trapezoid(self.radial[sel], self.r[sel]))
+        return float(trapezoid(radial[sel], self.r[sel]))
 
     def __repr__(self) -> str:
         return (f"PairDistribution(n={len(self.r)}, r={self.r[0]:.4g}..{self.r[-1]:.4g} angstrom, "

@@ -30,7 +30,7 @@ X_KINDS = ("q", "two_theta", "r")
 
 
 def _text_columns(path: Path) -> np.ndarray:
-    rows = []
+    rows: list[list[float]] = []
     with open(path, encoding="utf-8", errors="replace") as fh:
         for n, line in enumerate(fh, start=1):
             text = line.split("#", 1)[0].replace(",", " ").strip()

@@ -80,7 +80,7 @@ def _species_pairs(data, thermal: bool, nf: int):
     """Per frame, ordered-pair weights P_αβ on the nodes, by sorted species pair."""
     table = data.groups
     species = sorted(set(table.labels))
-    out = {}
+    out: dict[tuple[str, str], np.ndarray] = {}
     for p, (g, h) in enumerate(table.pairs()):
         row = data.hist[p] / nf
         if thermal:
@@ -92,7 +92,7 @@ def _species_pairs(data, thermal: bool, nf: int):
 
 
 def _weights(data, species, probe, nf) -> tuple[dict, str]:
-    occ = {}
+    occ: dict[str, float] = {}
     for lab, o in zip(data.groups.labels, data.group_occupancy / nf):
         occ[lab] = occ.get(lab, 0.0) + o
     n = sum(occ.values())
@@ -225,7 +225,7 @@ def pair_distribution(model_or_source, r, *, box="model", density: float | None 
     species, pairs = _species_pairs(data, thermal, nf)
     weights, how = _weights(data, species, pr, nf)
     shells = _pairs.shell_volumes(data.n_nodes, data.dr, data.cutoff)
-    occ = {}
+    occ: dict[str, float] = {}
     for lab, o in zip(data.groups.labels, data.group_occupancy / nf):
         occ[lab] = occ.get(lab, 0.0) + o
     c = {k: v / n for k, v in occ.items()}
@@ -296,7 +296,7 @@ def _fourier(sources, frame_ids, labels, rv, *, box, density, probe, q_range, q_
         pos = rv > 0
         g[pos] = 1.0 + G[pos] / (4.0 * np.pi * rv[pos] * rho0)
     cautions = list(pr.cautions())
-    if data.periodic and q_min < 2.0 * np.pi / data.cutoff:
+    if data.periodic and data.cutoff is not None and q_min < 2.0 * np.pi / data.cutoff:
         cautions.append(f"F(Q) below 2 pi/r_max = {2 * np.pi / data.cutoff:.4g} 1/angstrom comes from the "
                         "windowed box sum and is not meaningful there")
     for text in cautions:

@@ -135,7 +135,7 @@ class ElectronProbe(Probe):
             )
         self.voltage_kv = v
         self.table = table
-        self.s_max = MOTT_BETHE_S_MAX if table == "mott-bethe" else PENG_S_MAX
+        self.s_max: float = MOTT_BETHE_S_MAX if table == "mott-bethe" else PENG_S_MAX
         self.gamma = relativistic_gamma(v)
         self.wavelength = electron_wavelength(v)
         self.include_gamma = bool(include_gamma)

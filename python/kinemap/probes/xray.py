@@ -261,9 +261,9 @@ class XRayProbe(Probe):
             "table_library": f"periodictable {_library_version()} (periodictable.cromermann)",
             "s_max_inv_angstrom": WK_S_MAX,
         }
-        if self.energy_kev is not None:
+        if self.energy_kev is not None and self.wavelength is not None:  # (set together)
             meta["energy_kev"] = self.energy_kev
-            meta["wavelength_angstrom"] = float(self.wavelength)  # type: ignore[arg-type]
+            meta["wavelength_angstrom"] = float(self.wavelength)
         if self.anomalous:
             meta["anomalous_source"] = HENKE_CITATION
             meta["anomalous_library"] = f"periodictable {_library_version()} (periodictable.xsf)"
@@ -282,7 +282,7 @@ def _base(symbol: str) -> str:
 
 def _positive_float(value: object, name: str, unit: str) -> float:
     try:
-        v = float(value)  # type: ignore[arg-type]
+        v = float(value)  # type: ignore[arg-type]  # any input: float() refuses what it cannot convert
     except (TypeError, ValueError):
         raise InvalidInputError(f"`{name}` must be a number in {unit}, got {value!r}") from None
     if not np.isfinite(v) or v <= 0:

@@ -17,7 +17,7 @@ from scipy import ndimage
 from .._shared.validate import flag, real_array, real_number, whole_number
 from ..errors import InvalidInputError
 from ..pattern import Pattern
-from ..qgrid import QGrid
+from ..qgrid import QGrid, RegularGrid
 
 
 @dataclass
@@ -186,7 +186,7 @@ def find_peaks(data, grid: QGrid | None = None, q=None, *, threshold: float = 1e
             raise InvalidInputError(f"`grid` must be a kinemap.QGrid, got {type(grid).__name__}")
         if tuple(grid.shape) != inten.shape:
             raise InvalidInputError(f"grid shape {tuple(grid.shape)} != map shape {inten.shape}")
-        if grid.is_regular:
+        if isinstance(grid, RegularGrid):
             if grid.steps is None or grid.steps.shape[0] != inten.ndim:
                 raise InvalidInputError("the grid's number of axes does not match the map")
             regular = (np.asarray(grid.origin, dtype=np.float64), grid.steps)

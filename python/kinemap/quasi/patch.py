@@ -145,7 +145,7 @@ class Patch(AtomSourceBase):
 
     # ------------------------------------------------------------------ protocol
     @property
-    def n_atoms(self) -> int:  # type: ignore[override]
+    def n_atoms(self) -> int:  # type: ignore[override]  # computed (read-only) where the base has an attribute
         """Number of atoms (round patches: counted by one generation pass, then kept)."""
         if self._count is None:
             if self.cells is not None:
