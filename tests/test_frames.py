@@ -63,18 +63,10 @@ def test_in_memory_frames_and_progress(rng):
     assert avg.diffuse.intensity[0] == pytest.approx(0.0, abs=1e-9)
 
 
-def test_a_grid_of_kind_hkl_without_a_cell_is_used_as_given(rng):
-    # QGrid.regular(..., kind="hkl") without a cell has no h, k, l to follow from frame to
-    # frame: it is a grid in Å⁻¹ (this used to fail with a TypeError on frames with a cell).
-    cell = np.eye(3) * 8.0
-    frames = [km.Model(rng.uniform(0, 8, (40, 3)), "C", box=cell, cell=cell) for _ in range(6)]
-    grid = km.QGrid.regular([0, 0, 0], np.eye(3)[:2] * (2 * np.pi / 8.0), (4, 5), kind="hkl")  # on the box lattice
-    with pytest.warns(FewFramesWarning):
-        avg = average_frames(frames, grid, probe="unit", method="exact")
-    q = grid.q_vectors()
-    amps = np.array([numpy_amplitude(m.positions, q, np.ones((len(q), 40))) for m in frames])
-    total = np.mean(np.abs(amps) ** 2, axis=0).reshape(grid.shape)
-    np.testing.assert_allclose(avg.total.intensity, total, rtol=1e-9, atol=1e-9 * total.max())
+def test_a_grid_of_kind_hkl_needs_a_cell():
+    # h, k, l without a cell mean nothing (this used to reach average_frames and fail there).
+    with pytest.raises(InvalidInputError, match="needs the `cell`"):
+        km.QGrid.regular([0, 0, 0], np.eye(3)[:2] * (2 * np.pi / 8.0), (4, 5), kind="hkl")
 
 
 def test_bragg_diffuse_split_of_jittered_crystal(rng):

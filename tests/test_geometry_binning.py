@@ -122,14 +122,13 @@ def test_binning_into_a_plane_with_thickness(series):
         km.bin_frames(s["frames"], s["det"], grid=plane, axis=AXIS, angles=s["angles"])
 
 
-def test_binning_into_a_grid_of_kind_hkl_without_a_cell(series):
-    # QGrid.regular(..., kind="hkl") without a cell has its axes in Å⁻¹: it is binned in Å⁻¹.
-    # The same voxels as the fixture's hkl volume (cubic cell: q = 2π h / A), given in Å⁻¹,
-    # must reproduce the synthetic map (this used to fail inside NumPy on the missing cell).
+def test_binning_into_the_same_voxels_given_in_inverse_angstrom(series):
+    # The fixture's hkl volume (cubic cell: q = 2π h / A) given as a volume in Å⁻¹ must
+    # reproduce the synthetic map where covered, binned in Å⁻¹.
     s = series
     to_q = 2 * np.pi / A
-    grid = km.QGrid.regular(np.full(3, -2.0 * to_q), np.eye(3) * 0.5 * to_q, (9, 9, 9), kind="hkl")
-    assert grid.cell is None
+    grid = km.QGrid.regular(np.full(3, -2.0 * to_q), np.eye(3) * 0.5 * to_q, (9, 9, 9))
+    assert grid.cell is None and grid.kind == "volume"
     pat = km.bin_frames(s["frames"], s["det"], grid=grid, axis=AXIS, angles=s["angles"], monitor=s["monitor"],
                         efficiency=s["eff"])
     covered = np.isfinite(pat.intensity)

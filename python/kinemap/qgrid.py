@@ -148,6 +148,8 @@ class QGrid:
         if len(shp) != len(st):
             raise InvalidInputError(f"`shape` {shp} must have one entry per step vector ({len(st)})")
         c = None if cell is None else as_cell(cell)
+        if kind == "hkl" and c is None:
+            raise InvalidInputError("a grid of kind 'hkl' needs the `cell` its h, k, l refer to")
         if kind is None:
             kind = "hkl" if c is not None else {0: "line", 1: "line", 2: "plane", 3: "volume"}[len(shp)]
         return RegularGrid(kind=kind, shape=shp, cell=c, origin=o, steps=st)
