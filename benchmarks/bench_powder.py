@@ -103,7 +103,7 @@ def main() -> None:
     node_q = values.shape[0] * n_nodes * len(q)
     rows.append((name, t.wall, node_q / t.wall, node_q))
 
-    model = km.Model(pos, np.where(species == 0, "Fe", "Ni"), cell=box)
+    model = km.Model(pos, np.where(species == 0, "Fe", "Ni"), box=box)
     name = "km.powder end to end (X-ray)"
     with timed(name) as t:
         pat = km.powder(model, np.linspace(2 * np.pi / args.r_max, args.q_max, args.nq), r_max=args.r_max,

@@ -376,6 +376,13 @@ class Model:
             return Groups(index=np.zeros(0, np.uint32), labels=[], b_iso=np.zeros(0), u_aniso=None)
         labels, sp_index = self._label_codes()
         if self.u_aniso is None:
+            # The common case, one B per species (or per model): the species are the groups,
+            # found without sorting a million values.
+            first = np.array([int(np.argmax(sp_index == i)) for i in range(len(labels))])
+            b_of_label = self.b_iso[first]
+            if np.array_equal(self.b_iso, b_of_label[sp_index]):  # (the labels are those present)
+                return Groups(index=np.ascontiguousarray(sp_index, dtype=np.uint32),
+                              labels=[str(lab) for lab in labels], b_iso=b_of_label.copy(), u_aniso=None)
             # Integer keys (species code × distinct-B index): sorting integers is much faster
             # than a row-wise unique of a float table, and a model with one B is one pass.
             b_values, b_index = np.unique(self.b_iso, return_inverse=True)

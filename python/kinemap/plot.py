@@ -16,6 +16,7 @@ from pathlib import Path
 import numpy as np
 
 from ._shared.output import atomic_write, check_output
+from ._shared.validate import whole_number
 from .errors import InvalidInputError
 from .pattern import Pattern
 from .qgrid import QGrid, RegularGrid
@@ -402,8 +403,7 @@ def render(pattern: Pattern, path, *, dpi: int = 100, size=(6.4, 5.2), overwrite
     OSError
         An unwritable output path.
     """
-    if isinstance(dpi, bool) or not isinstance(dpi, (int, np.integer)) or not 10 <= dpi <= 1200:
-        raise InvalidInputError(f"`dpi` must be a whole number in 10..1200, got {dpi!r}")
+    dpi = whole_number(dpi, "dpi", minimum=10, maximum=1200)
     try:
         w, h = (float(s) for s in size)
     except (TypeError, ValueError):

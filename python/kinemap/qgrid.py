@@ -383,17 +383,35 @@ class RegularGrid(QGrid):
 
     def q_norms(self, start: int = 0, stop: int | None = None) -> np.ndarray:
         """|q| of the flattened points ``start:stop``, without forming the q-vectors:
-        |o + Σ i_a s_a|² expanded in the grid indices."""
+        |o + Σ i_a s_a|² expanded in the grid indices (for the whole grid, as sums of
+        per-axis and per-pair-of-axes terms broadcast over the shape)."""
         stop = self.size if stop is None else min(stop, self.size)
         if not self.shape:
             return np.full(stop - start, float(np.linalg.norm(self.origin)))
-        idx = [ix.astype(np.float64) for ix in np.unravel_index(np.arange(start, stop), self.shape)]
         o, s = self.origin, self.steps
+        if start == 0 and stop == self.size:
+            nd = len(self.shape)
+            idx = [np.arange(n, dtype=np.float64) for n in self.shape]
+
+            def along(terms, axes):
+                view = [1] * nd
+                for ax, n in zip(axes, terms.shape):
+                    view[ax] = n
+                return terms.reshape(view)
+
+            q2 = np.full(self.shape, float(o @ o))
+            for a in range(nd):
+                q2 += along(idx[a] * (2.0 * float(o @ s[a]) + idx[a] * float(s[a] @ s[a])), (a,))
+                for b in range(a):
+                    q2 += along(2.0 * float(s[a] @ s[b]) * np.outer(idx[b], idx[a]), (b, a))
+            np.maximum(q2, 0.0, out=q2)
+            return np.sqrt(q2, out=q2).reshape(-1)
+        idx_list = [ix.astype(np.float64) for ix in np.unravel_index(np.arange(start, stop), self.shape)]
         q2 = np.full(stop - start, float(o @ o))
-        for a, ia in enumerate(idx):
+        for a, ia in enumerate(idx_list):
             q2 += ia * (2.0 * float(o @ s[a]) + ia * float(s[a] @ s[a]))
             for b in range(a):
-                q2 += 2.0 * float(s[a] @ s[b]) * ia * idx[b]
+                q2 += 2.0 * float(s[a] @ s[b]) * ia * idx_list[b]
         np.maximum(q2, 0.0, out=q2)
         return np.sqrt(q2)
 

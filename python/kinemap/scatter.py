@@ -117,7 +117,8 @@ def scatter(model, grid, *, probe="xray", method: str = "auto", tol: float = 1e-
         A folder that keeps finished q-blocks: a stopped run started again with the same
         inputs reuses them (``metadata["run"]["blocks_reused"]``); other inputs are refused.
     block_points : int, optional
-        q-points per block of a cluster or checkpointed run (default 65536).
+        q-points per block of a cluster or checkpointed run (default: 65536 in this process; on
+        a cluster, blocks that give about 8 tasks, at most 2²⁰ points).
 
     Returns
     -------

@@ -28,6 +28,8 @@ from __future__ import annotations
 import hashlib
 import json
 import os
+import uuid
+from collections import OrderedDict
 from pathlib import Path
 from typing import TYPE_CHECKING
 
@@ -44,8 +46,10 @@ from .factors import FactorTables
 if TYPE_CHECKING:
     import distributed
 
-#: q-points per block when none is given: tasks of seconds to minutes for 10⁶-atom chunks.
+#: q-points per block of a checkpointed run in this process when none is given.
 DEFAULT_BLOCK_POINTS = 1 << 16
+#: Largest automatic block on a cluster (a task's result is 16 bytes a point).
+MAX_AUTO_BLOCK_POINTS = 1 << 20
 _EXTRA = "kinemap[cluster]"
 
 
@@ -66,16 +70,37 @@ def read_chunk(source, index: int, chunk_atoms: int):
     raise InvalidInputError(f"the source has no atom chunk {index} of {chunk_atoms} atoms")
 
 
-def chunk_task(source, index: int, chunk_atoms: int, grid: QGrid, probe, u0: int, u1: int,
+#: Prepared atom chunks kept by each worker process for the next blocks of the same run
+#: (reading and grouping a chunk costs about as much as a small block's sums).
+_PREPARED: OrderedDict = OrderedDict()
+_PREPARED_KEEP = 2
+
+
+def _prepared(source, token: str, index: int, chunk_atoms: int):
+    key = (token, index, chunk_atoms)
+    hit = _PREPARED.get(key)
+    if hit is not None:
+        _PREPARED.move_to_end(key)
+        return hit
+    chunk = read_chunk(source, index, chunk_atoms)
+    entry = (chunk, Layout.prepare(chunk) if chunk.n_atoms else None)
+    _PREPARED[key] = entry
+    while len(_PREPARED) > _PREPARED_KEEP:
+        _PREPARED.popitem(last=False)
+    return entry
+
+
+def chunk_task(source, token: str, index: int, chunk_atoms: int, grid: QGrid, probe, u0: int, u1: int,
                threads: int | None) -> np.ndarray:
-    """One task: the amplitudes of atom chunk `index` on the units ``u0:u1`` of `grid`."""
+    """One task: the amplitudes of atom chunk `index` on the units ``u0:u1`` of `grid` (`token`
+    names the run, so that a worker reuses a chunk it prepared for an earlier block)."""
     if threads is None:
         threads = _worker_threads()
     layout = Layout(grid)
     out = np.zeros((u1 - u0) * layout.row_length, dtype=np.complex128)
-    chunk = read_chunk(source, index, chunk_atoms)
-    if chunk.n_atoms:
-        layout.add_chunk(chunk, FactorTables(probe), out, u0, u1, threads)
+    chunk, prepared = _prepared(source, token, index, chunk_atoms)
+    if prepared is not None:
+        layout.add_chunk(chunk, FactorTables(probe), out, u0, u1, threads, prepared=prepared)
     return out
 
 
@@ -184,6 +209,14 @@ class Checkpoint:
 # --------------------------------------------------------------------------------------
 # the run
 # --------------------------------------------------------------------------------------
+def auto_block_points(m: int, n_chunks: int, task_target: int = 8) -> int:
+    """q-points per block on a cluster: as few blocks as give about `task_target` tasks (every
+    task reads and prepares its atom chunk, so fewer blocks read the model fewer times), at
+    most ``MAX_AUTO_BLOCK_POINTS``."""
+    n_blocks = max(1, -(-task_target // n_chunks))
+    return max(1, min(MAX_AUTO_BLOCK_POINTS, -(-m // n_blocks)))
+
+
 def blocks_of(layout: Layout, block_points: int) -> list[tuple[int, int]]:
     units = max(1, block_points // layout.row_length)
     return [(u, min(layout.n_units, u + units)) for u in range(0, layout.n_units, units)]
@@ -243,12 +276,14 @@ def blocked_amplitudes(source, grid: QGrid, probe, *, cluster=None, checkpoint=N
     """A(q) by the exact sum cut into (atom chunk × q-block) tasks, on a Dask cluster or in this
     process, with optional checkpoints. Returns the map and a summary of the run."""
     layout = Layout(grid)
-    block_points = DEFAULT_BLOCK_POINTS if block_points is None else int(block_points)
-    blocks = blocks_of(layout, block_points)
     n_atoms = source.n_atoms
     if n_atoms is None:
         n_atoms = sum(c.n_atoms for c in source.iter_chunks(chunk_atoms))
     n_chunks = max(1, -(-int(n_atoms) // chunk_atoms))
+    if block_points is None:
+        block_points = DEFAULT_BLOCK_POINTS if cluster is None else auto_block_points(grid.size, n_chunks)
+    block_points = int(block_points)
+    blocks = blocks_of(layout, block_points)
     store = None
     if checkpoint is not None:
         store = Checkpoint(checkpoint, run_inputs(source, grid, probe, chunk_atoms=chunk_atoms,
@@ -280,9 +315,14 @@ def blocked_amplitudes(source, grid: QGrid, probe, *, cluster=None, checkpoint=N
             prog.add(1)
 
         if cluster is None:
-            for b in todo:
-                u0, u1 = blocks[b]
-                finish(b, [chunk_task(source, c, chunk_atoms, grid, probe, u0, u1, threads) for c in range(n_chunks)])
+            token = uuid.uuid4().hex
+            try:
+                for b in todo:
+                    u0, u1 = blocks[b]
+                    finish(b, [chunk_task(source, token, c, chunk_atoms, grid, probe, u0, u1, threads)
+                               for c in range(n_chunks)])
+            finally:
+                _PREPARED.clear()  # this process keeps no atoms after the run
         else:
             _run_on_cluster(cluster, source, grid, probe, blocks, todo, n_chunks, chunk_atoms, threads, finish,
                             summary)
@@ -314,6 +354,7 @@ def _run_on_cluster(cluster, source, grid, probe, blocks, todo, n_chunks, chunk_
         probe_f = _held(client, probe)
         parts: dict[int, dict[int, np.ndarray]] = {}
         owner = {}
+        token = uuid.uuid4().hex
         # A bounded number of blocks in flight keeps the results held on the client small.
         window = max(2, 2 * max(len(workers), 1))
         pending = list(todo)
@@ -322,8 +363,8 @@ def _run_on_cluster(cluster, source, grid, probe, blocks, todo, n_chunks, chunk_
             u0, u1 = blocks[b]
             parts[b] = {}
             for c in range(n_chunks):
-                f = client.submit(chunk_task, src, c, chunk_atoms, grid_f, probe_f, u0, u1, threads,
-                                  key=f"kinemap-{b}-{c}-{id(parts)}", pure=False)
+                f = client.submit(chunk_task, src, token, c, chunk_atoms, grid_f, probe_f, u0, u1, threads,
+                                  key=f"kinemap-{token}-{b}-{c}", pure=False)
                 owner[f.key] = (b, c)
                 futures.append(f)
                 yield f

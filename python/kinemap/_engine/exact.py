@@ -77,12 +77,17 @@ class Layout:
         factors = tables.table(groups, ("points", u0, u1), s, lambda: q)
         return _core.point_amplitudes(atoms, q, factors, threads=threads)
 
-    def add_chunk(self, chunk, tables: FactorTables, out: np.ndarray, u0: int, u1: int, threads,
-                  prog: Progress | None = None) -> None:
-        """Add the amplitudes of one atom chunk at units ``u0:u1`` to ``out`` (which holds
-        exactly those units), call by call."""
+    @staticmethod
+    def prepare(chunk):
+        """(groups, AtomSet) of an atom chunk: what the core needs, reusable across q-blocks."""
         groups = chunk.groups()
-        atoms = _core.AtomSet(chunk.positions, chunk.occupancy, groups.index, groups.n_groups)
+        return groups, _core.AtomSet(chunk.positions, chunk.occupancy, groups.index, groups.n_groups)
+
+    def add_chunk(self, chunk, tables: FactorTables, out: np.ndarray, u0: int, u1: int, threads,
+                  prog: Progress | None = None, prepared=None) -> None:
+        """Add the amplitudes of one atom chunk at units ``u0:u1`` to ``out`` (which holds
+        exactly those units), call by call (`prepared`: the chunk's :meth:`prepare`)."""
+        groups, atoms = prepared if prepared is not None else self.prepare(chunk)
         per_call = self.units_per_call(atoms.n_atoms, groups.n_groups)
         n = self.row_length
         for a in range(u0, u1, per_call):

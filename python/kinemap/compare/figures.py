@@ -7,6 +7,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .._shared.validate import whole_number
 from ..errors import InvalidInputError
 
 #: Fine |q| bins accumulated for the shells; 5040 = 2⁴·3²·5·7 is divisible by every shell
@@ -153,8 +154,7 @@ class Agreement:
         InvalidInputError
             When no |q| was given, or `n` is not between 1 and 5040.
         """
-        if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or not 1 <= n <= N_FINE_BINS:
-            raise InvalidInputError(f"`n` (number of shells) must be a whole number in 1..{N_FINE_BINS}, got {n!r}")
+        n = whole_number(n, "n (number of shells)", minimum=1, maximum=N_FINE_BINS)
         if self.q_range is None or not self._bins:
             raise InvalidInputError("figures per shell need |q| of every point; none was given")
         lo, hi = self.q_range

@@ -25,6 +25,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
+from .._shared.validate import whole_number
 from ..errors import InvalidInputError, ModelFileError
 from ..model import AtomSourceBase, Groups, Model, as_cell, resolve_box_and_cell
 from ._species import LABEL_SCAN_ATOMS, SPECIES_HINT, SpeciesSupply, SpeciesTable, parse_species_map
@@ -110,9 +111,7 @@ def normalise_frame(frame, n_frames: int, where: str) -> int:
     """Turn `frame` (None = first, negative counts from the end) into an index."""
     if frame is None:
         return 0
-    if isinstance(frame, bool) or not isinstance(frame, (int, np.integer)):
-        raise InvalidInputError(f"`frame` must be a whole number, got {frame!r}")
-    f = int(frame)
+    f = whole_number(frame, "frame")
     if f < 0:
         f += n_frames
     if not 0 <= f < n_frames:
@@ -121,9 +120,7 @@ def normalise_frame(frame, n_frames: int, where: str) -> int:
 
 
 def check_chunk_atoms(chunk_atoms) -> int:
-    if isinstance(chunk_atoms, bool) or not isinstance(chunk_atoms, (int, np.integer)) or chunk_atoms < 1:
-        raise InvalidInputError(f"`chunk_atoms` must be a whole number >= 1, got {chunk_atoms!r}")
-    return int(chunk_atoms)
+    return whole_number(chunk_atoms, "chunk_atoms", minimum=1)
 
 
 def check_u_aniso(u: np.ndarray, offset: int, where: str) -> None:

@@ -6,6 +6,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .._shared.progress import Progress
 from .._shared.validate import file_name
 from ..errors import InvalidInputError, ModelFileError
 from ._base import FileSource
@@ -175,18 +176,10 @@ def convert(source_or_path, output, *, frames=None, species_map=None, format: st
     boundary = desc.get("boundary") or ("periodic" if first.box is not None else "none")
     if isinstance(boundary, list) and len(boundary) == 2:
         boundary = boundary + ["none"]
-    bar = None
-    if progress:
-        from tqdm.auto import tqdm
-
-        bar = tqdm(total=n * len(srcs), unit="atom", unit_scale=True, desc="convert")
-    try:
-        with H5MDWriter(output, n, labels, boundary=boundary, time_dependent_box=td_box,
-                        position_dtype=position_dtype, overwrite=overwrite, inputs=[input_path]) as w:
-            _write_frames(w, base, chosen, srcs, boxes, labels, desc, with_ids, bar)
-    finally:
-        if bar is not None:
-            bar.close()
+    with Progress(progress, n * len(srcs), unit="atom", desc="convert") as bar, \
+            H5MDWriter(output, n, labels, boundary=boundary, time_dependent_box=td_box,
+                       position_dtype=position_dtype, overwrite=overwrite, inputs=[input_path]) as w:
+        _write_frames(w, base, chosen, srcs, boxes, labels, desc, with_ids, bar)
     return Path(output)
 
 
@@ -259,8 +252,7 @@ def _write_frames(w, base, chosen, srcs, boxes, labels, desc, with_ids, bar) -> 
                     elif np.any(chunk.b_iso != 0.0):
                         w.write_b_iso(chunk.b_iso[order][a:b], r0)
             start += m
-            if bar is not None:
-                bar.update(m)
+            bar.add(m)
         if start != n:
             raise ModelFileError(f"{base.path}: frame {f} yielded {start} atoms, expected {n}")
 

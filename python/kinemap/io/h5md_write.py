@@ -21,6 +21,7 @@ from pathlib import Path
 import numpy as np
 
 from .._shared.output import AtomicFile, HeldSignals
+from .._shared.validate import whole_number
 from ..errors import InvalidInputError
 from ..model import Model, as_cell
 from ._guarded import GuardedFile
@@ -83,8 +84,7 @@ class H5MDWriter:
 
         from .. import __version__
 
-        if isinstance(n_atoms, bool) or not isinstance(n_atoms, (int, np.integer)) or n_atoms < 0:
-            raise InvalidInputError(f"`n_atoms` must be a whole number >= 0, got {n_atoms!r}")
+        n_atoms = whole_number(n_atoms, "n_atoms", minimum=0)
         labels = [str(s) for s in species]
         if not labels or any(not s for s in labels) or len(set(labels)) != len(labels):
             raise InvalidInputError(f"`species` must be distinct non-empty labels, got {labels!r}")

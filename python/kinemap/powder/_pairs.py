@@ -26,6 +26,7 @@ from .. import _core
 from .._shared.memory import check_fits, human_bytes
 from .._shared.progress import Progress
 from .._shared.validate import thread_count as resolve_threads
+from .._shared.validate import whole_number
 from ..errors import InvalidInputError
 from ..model import Model, as_cell
 
@@ -305,9 +306,7 @@ def collect(sources: list, frames: list, *, box, r_max: float | None, dr: float,
     smallest face-to-face width), None for all pairs of a particle.
     """
     threads = resolve_threads(threads)
-    if isinstance(chunk_atoms, bool) or not isinstance(chunk_atoms, (int, np.integer)) or chunk_atoms < 1:
-        raise InvalidInputError(f"`chunk_atoms` must be a whole number >= 1, got {chunk_atoms!r}")
-    chunk_atoms = int(chunk_atoms)
+    chunk_atoms = whole_number(chunk_atoms, "chunk_atoms", minimum=1)
     boxes = [resolve_box(s, box) for s in sources]
     if any(b is None for b in boxes) and any(b is not None for b in boxes):
         raise InvalidInputError("some frames have a periodic box and some do not; give `box=` explicitly")

@@ -25,6 +25,7 @@ import warnings
 import numpy as np
 
 from .. import _core
+from .._shared.validate import real_number
 from ..errors import InvalidInputError
 from ..probes import get_probe
 from . import _pairs
@@ -184,9 +185,8 @@ def pair_distribution(model_or_source, r, *, box="model", density: float | None 
     rv = _as_r(r)
     frame_ids, sources = _pairs.frame_sources(model_or_source, frames)
     labels = sorted({lab for s in sources for lab in s.species_labels()})
-    if density is not None and (isinstance(density, bool) or not isinstance(density, (int, float))
-                                or not (math.isfinite(density) and density > 0)):
-        raise InvalidInputError(f"`density` must be a positive number of atoms per cubic angstrom, got {density!r}")
+    if density is not None:
+        density = real_number(density, "density", minimum=0.0, exclusive_minimum=True)
     if q_range is not None:
         return _fourier(sources, frame_ids, labels, rv, box=box, density=density,
                         probe=probe if probe is not None else "xray", q_range=q_range, q_damp=q_damp,
@@ -254,12 +254,10 @@ def _fourier(sources, frame_ids, labels, rv, *, box, density, probe, q_range, q_
         raise InvalidInputError(f"`q_range` must be (Q_min, Q_max) in 1/angstrom, got {q_range!r}") from None
     if not (math.isfinite(q_min) and math.isfinite(q_max) and 0 <= q_min < q_max):
         raise InvalidInputError(f"`q_range` must satisfy 0 <= Q_min < Q_max, got {q_range!r}")
-    if isinstance(q_damp, bool) or not isinstance(q_damp, (int, float)) or not (math.isfinite(q_damp) and q_damp >= 0):
-        raise InvalidInputError(f"`q_damp` must be a number >= 0 (1/angstrom), got {q_damp!r}")
+    q_damp = real_number(q_damp, "q_damp", minimum=0.0)
     if dq is None:
         dq = min(0.01, np.pi / (20.0 * float(rv[-1]))) if rv[-1] > 0 else 0.01
-    if isinstance(dq, bool) or not isinstance(dq, (int, float)) or not (math.isfinite(dq) and dq > 0):
-        raise InvalidInputError(f"`dq` must be a positive number (1/angstrom), got {dq!r}")
+    dq = real_number(dq, "dq", minimum=0.0, exclusive_minimum=True)
     n_q = math.ceil((q_max - q_min) / dq) + 1
     if n_q > 1_000_000:
         raise InvalidInputError(f"`dq` = {dq:g} gives {n_q} Q points over {q_min:g}..{q_max:g}; use a larger dq")
