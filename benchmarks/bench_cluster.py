@@ -6,7 +6,10 @@
 Cases, each timed end to end in this process (the cluster is started before the clock runs
 and its start-up is reported separately):
 * in-process exact sum (``km.scatter(..., method="exact")``);
-* the same job on a LocalCluster of worker processes (one thread each, as many as cores);
+* the same job on a LocalCluster: worker processes with one thread each, as many as cores
+  (each process holds its own copy of the atoms, so the cores share the memory bandwidth
+  less well than threads of one process do), and one worker process using all cores (the
+  cost of the task machinery alone);
 * a streamed H5MD model: tasks read their own atom chunks from the file.
 Prints wall times, the overhead ratio (cluster / in-process − 1), the peak resident memory of
 each worker process (ru_maxrss) and of this process, and checks that the maps agree.
@@ -48,7 +51,7 @@ def main() -> None:
     ap.add_argument("--stream", type=float, default=0.0, help="atoms of a streamed H5MD job (0: skip)")
     ap.add_argument("--stream-points", type=int, default=64 * 64)
     ap.add_argument("--chunk-atoms", type=int, default=1 << 20)
-    ap.add_argument("--block-points", type=int, default=1 << 14)
+    ap.add_argument("--block-points", type=int, default=None, help="q-points per task block (default: kinemap's)")
     args = ap.parse_args()
 
     import distributed
@@ -69,21 +72,28 @@ def main() -> None:
     t_local = time.perf_counter() - t0
     print(f"in-process: {t_local:8.2f} s   ({n * grid.size / t_local:.3g} pairs/s)")
 
-    t0 = time.perf_counter()
-    cluster = distributed.LocalCluster(n_workers=os.cpu_count(), threads_per_worker=1, processes=True,
-                                       dashboard_address=":0")
+    ncpu = os.cpu_count() or 1
+    for n_workers, per_worker in ((1, ncpu), (ncpu, 1)):
+        cl = distributed.LocalCluster(n_workers=n_workers, threads_per_worker=per_worker, processes=True,
+                                      dashboard_address=":0")
+        cli = distributed.Client(cl)
+        try:
+            t0 = time.perf_counter()
+            got = km.scatter(model, grid, cluster=cli, chunk_atoms=args.chunk_atoms,
+                             block_points=args.block_points).amplitude
+            t_cluster = time.perf_counter() - t0
+            run = km.scatter(model, km.QGrid.points([[0.1, 0, 0]]), cluster=cli).metadata["run"]
+            rss = cli.run(lambda: resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0)
+            print(f"cluster {n_workers} worker(s) x {per_worker} thread(s): {t_cluster:8.2f} s  overhead "
+                  f"{t_cluster / t_local - 1:+.1%}  identical map: {np.array_equal(got, ref)}; worker peak RSS (MB): "
+                  + ", ".join(f"{v:.0f}" for v in rss.values()) + f" (a second small run: {run['blocks']} block)")
+        finally:
+            cli.close()
+            cl.close()
+
+    cluster = distributed.LocalCluster(n_workers=ncpu, threads_per_worker=1, processes=True, dashboard_address=":0")
     client = distributed.Client(cluster)
-    t_start = time.perf_counter() - t0
     try:
-        t0 = time.perf_counter()
-        got = km.scatter(model, grid, cluster=client, chunk_atoms=args.chunk_atoms,
-                         block_points=args.block_points).amplitude
-        t_cluster = time.perf_counter() - t0
-        rss = client.run(lambda: resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0)
-        same = np.array_equal(got, ref)
-        print(f"cluster:    {t_cluster:8.2f} s   (start-up {t_start:.1f} s not included)  overhead "
-              f"{t_cluster / t_local - 1:+.1%}  identical map: {same}")
-        print("  worker peak RSS (MB): " + ", ".join(f"{v:.0f}" for v in rss.values()))
 
         if args.stream:
             ns = int(args.stream)
@@ -107,7 +117,7 @@ def main() -> None:
                 client.restart()
                 t0 = time.perf_counter()
                 b = km.scatter(src, plane, cluster=client, chunk_atoms=args.chunk_atoms,
-                               block_points=max(1, plane.size // (2 * os.cpu_count()))).amplitude
+                               block_points=args.block_points).amplitude
                 t_s_cluster = time.perf_counter() - t0
                 rss = client.run(lambda: resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0)
                 print(f"  in-process {t_s_local:.2f} s, cluster {t_s_cluster:.2f} s (overhead "

@@ -232,3 +232,18 @@ def test_map_file_without_optional_datasets_loads(tmp_path):
         del f["entry/data/q"]
     with pytest.raises(km.ModelFileError, match="/entry/data/q"):
         km.load_pattern(pts)
+
+
+def test_unaligned_arrays_are_accepted():
+    # Arrays rebuilt from pickled buffers (as on a Dask worker) can be unaligned views; the
+    # result must equal the one of aligned copies of the same numbers.
+    def unaligned(values):
+        raw = b"\0" + np.ascontiguousarray(values, dtype=np.float64).tobytes()
+        return np.frombuffer(raw, dtype=np.float64, offset=1).reshape(np.shape(values))
+
+    rng = np.random.default_rng(9)
+    pos, q = rng.uniform(0, 10, (7, 3)), rng.uniform(-2, 2, (5, 3))
+    assert not unaligned(q).flags["ALIGNED"]
+    ref = km.scatter(km.Model(pos, "Fe"), km.QGrid.points(q), method="exact").amplitude
+    got = km.scatter(km.Model(unaligned(pos), "Fe"), km.QGrid.points(unaligned(q)), method="exact").amplitude
+    np.testing.assert_array_equal(got, ref)

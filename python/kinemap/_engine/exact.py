@@ -24,6 +24,12 @@ PAIRS_PER_CALL_GRID = 1 << 30
 FACTOR_BYTES = 64 << 20
 
 
+def _aligned(a: np.ndarray) -> np.ndarray:
+    """float64, C-contiguous and aligned, as the core borrows it (arrays rebuilt from pickled
+    buffers on a cluster's workers can be unaligned views)."""
+    return np.require(a, dtype=np.float64, requirements=["C", "A"])
+
+
 class Layout:
     """How the core walks a grid: *units* are rows of the longest axis of a regular grid (each
     ``row_length`` points, stepped by phase recurrence) or single arbitrary points. The core's
@@ -72,7 +78,7 @@ class Layout:
 
             factors = tables.table(groups, ("rows", u0, u1), row_s(rows, step, n), q_vectors)
             return _core.grid_amplitudes(atoms, rows, step, n, factors, threads=threads)
-        q = np.ascontiguousarray(self.grid.q_vectors(u0, u1))
+        q = _aligned(self.grid.q_vectors(u0, u1))
         s = np.sqrt(np.einsum("mi,mi->m", q, q)) / (4.0 * np.pi)
         factors = tables.table(groups, ("points", u0, u1), s, lambda: q)
         return _core.point_amplitudes(atoms, q, factors, threads=threads)
@@ -81,7 +87,8 @@ class Layout:
     def prepare(chunk):
         """(groups, AtomSet) of an atom chunk: what the core needs, reusable across q-blocks."""
         groups = chunk.groups()
-        return groups, _core.AtomSet(chunk.positions, chunk.occupancy, groups.index, groups.n_groups)
+        return groups, _core.AtomSet(_aligned(chunk.positions), _aligned(chunk.occupancy), groups.index,
+                                     groups.n_groups)
 
     def add_chunk(self, chunk, tables: FactorTables, out: np.ndarray, u0: int, u1: int, threads,
                   prog: Progress | None = None, prepared=None) -> None:
