@@ -41,7 +41,7 @@ def _as_positions(positions, name: str = "positions") -> np.ndarray:
             f"`{name}` of atom {j} is not finite: {p[j].tolist()} "
             f"({int(bad.sum())} atoms have non-finite coordinates)"
         )
-    return np.ascontiguousarray(p)
+    return np.require(p, dtype=np.float64, requirements=["C", "A"])  # contiguous and aligned for the core
 
 
 def as_cell(cell, name: str = "cell") -> np.ndarray:

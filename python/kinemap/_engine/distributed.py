@@ -104,13 +104,13 @@ def chunk_task(source, token: str, index: int, chunk_atoms: int, grid: QGrid, pr
     return out
 
 
-def _worker_threads() -> int | None:
-    try:
-        from distributed import get_worker
+def _worker_threads() -> int:
+    """Core threads of one task on a worker: ``KINEMAP_NUM_THREADS`` when the worker's
+    environment sets it, else 1 — a worker runs as many tasks at once as it has Dask threads,
+    so more core threads per task would oversubscribe its cores."""
+    from .._shared.validate import thread_count
 
-        return int(get_worker().state.nthreads)
-    except (ImportError, ValueError, AttributeError):
-        return None
+    return thread_count(None) or 1
 
 
 # --------------------------------------------------------------------------------------

@@ -1,10 +1,17 @@
 //! Thread pools: the global rayon pool by default, or a cached pool of a chosen size.
+//!
+//! Pools of a chosen size are kept per calling thread: two callers that each ask for n
+//! threads at the same time (e.g. two tasks of one Dask worker, each with `threads=1`) get
+//! pools of their own and run side by side, instead of queueing on one shared pool.
 
 use crate::error::{Error, Result};
+use std::cell::RefCell;
 use std::collections::HashMap;
-use std::sync::{Arc, Mutex, OnceLock};
+use std::sync::Arc;
 
-static POOLS: OnceLock<Mutex<HashMap<usize, Arc<rayon::ThreadPool>>>> = OnceLock::new();
+thread_local! {
+    static POOLS: RefCell<HashMap<usize, Arc<rayon::ThreadPool>>> = RefCell::new(HashMap::new());
+}
 
 /// Threads allowed per core (oversubscription beyond this only costs memory and switches).
 pub const MAX_PER_CORE: usize = 8;
@@ -33,25 +40,20 @@ pub fn run<R: Send>(threads: Option<usize>, f: impl FnOnce() -> R + Send) -> Res
             cores()
         ))),
         Some(n) => {
-            let pool = {
-                let map = POOLS.get_or_init(|| Mutex::new(HashMap::new()));
-                let mut map = map.lock().unwrap_or_else(|p| p.into_inner());
-                match map.get(&n) {
-                    Some(p) => Arc::clone(p),
-                    None => {
-                        let p = rayon::ThreadPoolBuilder::new()
-                            .num_threads(n)
-                            .thread_name(|i| format!("kinemap-{i}"))
-                            .build()
-                            .map_err(|e| {
-                                Error::Threads(format!("cannot start {n} threads: {e}"))
-                            })?;
-                        let p = Arc::new(p);
-                        map.insert(n, Arc::clone(&p));
-                        p
-                    }
+            let pool = POOLS.with(|cell| -> Result<Arc<rayon::ThreadPool>> {
+                let mut map = cell.borrow_mut();
+                if let Some(p) = map.get(&n) {
+                    return Ok(Arc::clone(p));
                 }
-            };
+                let p = rayon::ThreadPoolBuilder::new()
+                    .num_threads(n)
+                    .thread_name(|i| format!("kinemap-{i}"))
+                    .build()
+                    .map_err(|e| Error::Threads(format!("cannot start {n} threads: {e}")))?;
+                let p = Arc::new(p);
+                map.insert(n, Arc::clone(&p));
+                Ok(p)
+            })?;
             Ok(pool.install(f))
         }
     }
