@@ -24,6 +24,7 @@ from pathlib import Path
 
 import numpy as np
 
+from ._shared.nexus import nexus_entry
 from ._shared.output import atomic_write
 from .errors import InvalidInputError, ModelFileError
 from .qgrid import QGrid, RegularGrid
@@ -249,16 +250,8 @@ def save_pattern(pattern: Pattern, path, *, keep_amplitude: bool = True, extra: 
 
     final = Path(path)
     with atomic_write(final, overwrite=overwrite, inputs=inputs, what="map file") as tmp, h5py.File(tmp, "w") as f:
-        f.attrs["NX_class"] = "NXroot"
-        f.attrs["default"] = "entry"
-        f.attrs["creator"] = "kinemap"
-        f.attrs["file_name"] = final.name
-        entry = f.create_group("entry")
-        entry.attrs["NX_class"] = "NXentry"
-        entry.attrs["default"] = "data"
-        prog = entry.create_dataset("program_name", data="kinemap")
-        prog.attrs["version"] = str(pattern.metadata.get("kinemap_version", ""))
-        entry.create_dataset("start_time", data=str(pattern.metadata.get("created", "")))
+        entry = nexus_entry(f, final.name, version=str(pattern.metadata.get("kinemap_version", "")),
+                            start_time=str(pattern.metadata.get("created", "")))
         data = entry.create_group("data")
         data.attrs["NX_class"] = "NXdata"
         data.attrs["signal"] = "intensity"

@@ -45,6 +45,7 @@ from pathlib import Path
 import numpy as np
 
 from .._shared.memory import check_fits
+from .._shared.nexus import nexus_entry
 from .._shared.output import atomic_write
 from .._shared.validate import real_number, whole_number
 from ..errors import InvalidInputError
@@ -113,12 +114,7 @@ class DeltaPDF:
 
         final = Path(path)
         with atomic_write(final, overwrite=overwrite, what="3D-ΔPDF file") as tmp, h5py.File(tmp, "w") as f:
-            f.attrs["NX_class"] = "NXroot"
-            f.attrs["default"] = "entry"
-            f.attrs["creator"] = "kinemap"
-            e = f.create_group("entry")
-            e.attrs["NX_class"] = "NXentry"
-            e.attrs["default"] = "delta_pdf"
+            e = nexus_entry(f, final.name, default="delta_pdf")
             g = e.create_group("delta_pdf")
             g.attrs["NX_class"] = "NXdata"
             g.attrs["signal"] = "delta_pdf"

@@ -28,6 +28,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .._shared.nexus import nexus_entry
 from .._shared.output import atomic_write, check_output
 from ..errors import InvalidInputError
 from ..qgrid import RegularGrid
@@ -181,14 +182,7 @@ def save_comparison(cmp, path, *, overwrite: bool = False, shells: int = 10) -> 
     has_sc = cmp._calc.has_sigma
     with atomic_write(final, overwrite=overwrite, inputs=inputs, what="comparison file") as tmp, \
             h5py.File(tmp, "w") as f:
-        f.attrs["NX_class"] = "NXroot"
-        f.attrs["default"] = "entry"
-        f.attrs["creator"] = "kinemap"
-        f.attrs["file_name"] = final.name
-        entry = f.create_group("entry")
-        entry.attrs["NX_class"] = "NXentry"
-        entry.attrs["default"] = "measured"
-        entry.create_dataset("program_name", data="kinemap compare")
+        entry = nexus_entry(f, final.name, default="measured", program="kinemap compare")
         gm = _nxdata(entry, "measured", grid, "measured intensity I_o" +
                      (" (symmetry-averaged)" if cmp._meas.symmetry_info else ""))
         gc = _nxdata(entry, "model", grid, "model on the measured scale, s I_c + b")

@@ -18,6 +18,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .._shared.nexus import nexus_entry
 from .._shared.output import atomic_write
 from .._shared.validate import file_name, real_array
 from ..errors import InvalidInputError, ModelFileError
@@ -283,12 +284,7 @@ def write_frames(path, counts, angles, *, detector=None, metadata: dict | None =
         raise InvalidInputError(f"`counts` {c.shape} and `angles` ({a.size}) do not describe the same frames")
     final = Path(path)
     with atomic_write(final, overwrite=overwrite, inputs=inputs, what="frames file") as tmp, h5py.File(tmp, "w") as f:
-        f.attrs["NX_class"] = "NXroot"
-        f.attrs["default"] = "entry"
-        f.attrs["creator"] = "kinemap"
-        entry = f.create_group("entry")
-        entry.attrs["NX_class"] = "NXentry"
-        entry.attrs["default"] = "data"
+        entry = nexus_entry(f, final.name)
         data = entry.create_group("data")
         data.attrs["NX_class"] = "NXdata"
         data.attrs["signal"] = "counts"

@@ -13,6 +13,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .._shared.nexus import nexus_entry
 from .._shared.output import atomic_write
 from ..pattern import Pattern, save_pattern
 from ..qgrid import QGrid
@@ -176,15 +177,7 @@ class PairDistribution:
 
         final = Path(path)
         with atomic_write(final, overwrite=overwrite) as tmp, h5py.File(tmp, "w") as f:
-            f.attrs["NX_class"] = "NXroot"
-            f.attrs["default"] = "entry"
-            f.attrs["creator"] = "kinemap"
-            f.attrs["file_name"] = final.name
-            entry = f.create_group("entry")
-            entry.attrs["NX_class"] = "NXentry"
-            entry.attrs["default"] = "data"
-            entry.create_dataset("program_name", data="kinemap").attrs["version"] = str(
-                self.metadata.get("kinemap_version", ""))
+            entry = nexus_entry(f, final.name, version=str(self.metadata.get("kinemap_version", "")))
             data = entry.create_group("data")
             data.attrs["NX_class"] = "NXdata"
             data.attrs["signal"] = "G"
