@@ -22,6 +22,7 @@ from __future__ import annotations
 import os
 from collections.abc import Sequence
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
@@ -490,3 +491,26 @@ def _dataset_supply(obj, text, where, path, n_frames, species_map) -> SpeciesSup
 
 __all__ = ["SpeciesTable", "parse_species_map", "LabelColumn", "SpeciesSupply", "species_supply",
            "file_names_attribute", "LABEL_SCAN_ATOMS", "SPECIES_HINT"]
+
+
+class ColumnLabels:
+    """Species read from a label column of an HDF5 file (the H5MD and the plain readers, whose
+    index ``self._ix`` has a ``species_column``)."""
+
+    _ix: Any
+    frame: int
+
+    def _declared_labels(self) -> list[str] | None:
+        col = self._ix.species_column
+        return None if col is None else col.declared()
+
+    def _column(self) -> LabelColumn:
+        """The species column: present whenever labels are read from the file (without it,
+        ``_missing_species`` says why and nothing is read)."""
+        col = self._ix.species_column
+        assert col is not None
+        return col
+
+    def _species_frame(self) -> int:
+        col = self._ix.species_column
+        return self.frame if (col is not None and col.framed) else 0

@@ -45,11 +45,11 @@ from ._base import (
     normalise_frame,
 )
 from ._hdf5 import open_h5
-from ._species import LabelColumn
+from ._species import ColumnLabels
 from .h5md_layout import LAYOUT_ERRORS, H5MDIndex
 
 
-class H5MDSource(FileSource):
+class H5MDSource(ColumnLabels, FileSource):
     """One frame of an H5MD file, read in bounded hyperslabs. Build with :func:`open_h5md`
     or :func:`kinemap.open_model`."""
 
@@ -79,21 +79,6 @@ class H5MDSource(FileSource):
     # -- species -------------------------------------------------------------------
     def _missing_species(self) -> str | None:
         return self._ix.missing_species()
-
-    def _declared_labels(self) -> list[str] | None:
-        col = self._ix.species_column
-        return None if col is None else col.declared()
-
-    def _column(self) -> LabelColumn:
-        """The species element: present whenever labels are read from the file (without it,
-        :meth:`_missing_species` says why and nothing is read)."""
-        col = self._ix.species_column
-        assert col is not None
-        return col
-
-    def _species_frame(self) -> int:
-        col = self._ix.species_column
-        return self.frame if (col is not None and col.framed) else 0
 
     def _scan_labels(self) -> list[str]:
         ix = self._ix

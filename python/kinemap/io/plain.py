@@ -47,7 +47,7 @@ from ._base import (
     normalise_frame,
 )
 from ._hdf5 import attr_numbers, attr_str, get_checked, h5py_module, open_h5, read_small, tree
-from ._species import SPECIES_HINT, LabelColumn
+from ._species import SPECIES_HINT, ColumnLabels, LabelColumn
 from .h5md_layout import LAYOUT_ERRORS
 
 #: Default dataset paths of the plain layout.
@@ -192,7 +192,7 @@ class _PlainIndex:
         return cell_from_edges(raw, f"{self.where}: /{cp} (frame {frame})")
 
 
-class PlainSource(FileSource):
+class PlainSource(ColumnLabels, FileSource):
     """One frame of a file in the plain HDF5 layout (see the module notes)."""
 
     format = "hdf5"
@@ -223,20 +223,6 @@ class PlainSource(FileSource):
     # -- species -------------------------------------------------------------------
     def _missing_species(self) -> str | None:
         return self._ix.species_missing
-
-    def _declared_labels(self) -> list[str] | None:
-        col = self._ix.species_column
-        return None if col is None else col.declared()
-
-    def _column(self) -> LabelColumn:
-        """The species dataset: present whenever labels are read from the file (without it,
-        :meth:`_missing_species` says why and nothing is read)."""
-        col = self._ix.species_column
-        assert col is not None
-        return col
-
-    def _species_frame(self) -> int:
-        return self.frame if self._column().framed else 0
 
     def _scan_labels(self) -> list[str]:
         with open_h5(self.path) as f:

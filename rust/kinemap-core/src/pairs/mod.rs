@@ -592,6 +592,14 @@ fn round_to_u64(x: f64) -> u64 {
 mod tests {
     use super::*;
 
+    /// Largest |a − b| over two histograms of the same shape.
+    fn max_abs_diff(a: &[f64], b: &[f64]) -> f64 {
+        a.iter()
+            .zip(b)
+            .map(|(x, y)| (x - y).abs())
+            .fold(0.0, f64::max)
+    }
+
     /// Independent reference: every pair by brute force. In a periodic box the fractional
     /// difference is first reduced to [−½, ½) and then all 27 neighbouring images are tried
     /// (the shortest one is among them for the boxes used here); two-node binning in f64.
@@ -711,11 +719,7 @@ mod tests {
             let c = cutoff.unwrap_or(f64::INFINITY);
             let want = brute(&pos, &g, &w, 3, 2200, dr, c, None);
             let got = h.values();
-            let err = got
-                .iter()
-                .zip(&want)
-                .map(|(a, b)| (a - b).abs())
-                .fold(0.0, f64::max);
+            let err = max_abs_diff(&got, &want);
             assert!(err < 1e-9, "cutoff {cutoff:?}: max error {err}");
         }
     }
@@ -729,12 +733,7 @@ mod tests {
         let mut h = PairHistogram::new(2, n_nodes, dr, Some(5.5), None).unwrap();
         h.add_within(&pos, &g, &w, Some(2)).unwrap();
         let want = brute(&pos, &g, &w, 2, n_nodes, dr, 5.5, None);
-        let err = h
-            .values()
-            .iter()
-            .zip(&want)
-            .map(|(a, b)| (a - b).abs())
-            .fold(0.0, f64::max);
+        let err = max_abs_diff(&h.values(), &want);
         assert!(err < 1e-9, "max error {err}");
     }
 
@@ -758,11 +757,7 @@ mod tests {
         h.add_within(&pos, &g, &w, Some(2)).unwrap();
         let want = brute(&pos, &g, &w, 2, n_nodes, dr, cutoff, Some(cell));
         let got = h.values();
-        let err = got
-            .iter()
-            .zip(&want)
-            .map(|(a, b)| (a - b).abs())
-            .fold(0.0, f64::max);
+        let err = max_abs_diff(&got, &want);
         assert!(err < 1e-9, "max error {err}");
         let total: f64 = want.iter().sum();
         assert!(total > 100.0, "the test needs pairs: {total}");
@@ -785,12 +780,7 @@ mod tests {
         assert_eq!(grid.reach, 2, "the test is meant for half-cut-off cells");
         h.add_within(&pos, &g, &w, Some(2)).unwrap();
         let want = brute(&pos, &g, &w, 2, n_nodes, dr, cutoff, Some(cell));
-        let err = h
-            .values()
-            .iter()
-            .zip(&want)
-            .map(|(a, b)| (a - b).abs())
-            .fold(0.0, f64::max);
+        let err = max_abs_diff(&h.values(), &want);
         assert!(err < 1e-9, "max error {err}");
     }
 
