@@ -125,19 +125,10 @@ def cmd_render(args) -> int:
 
 
 def _is_map_file(path) -> bool:
-    p = Path(path)
-    if not p.is_file():
-        return False
-    with open(p, "rb") as fh:
-        if fh.read(8) != b"\x89HDF\r\n\x1a\n":
-            return False
-    import h5py
+    """A map (kinemap's or any NeXus NXdata map) rather than a model file."""
+    from ..compare.maps import is_map_file
 
-    try:
-        with h5py.File(p, "r") as f:
-            return "entry/data/intensity" in f or f.attrs.get("NX_class") in ("NXroot", b"NXroot")
-    except OSError:
-        return False
+    return Path(path).suffix.lower() != ".npy" and is_map_file(path)
 
 
 def _map_info(path: Path) -> dict:
