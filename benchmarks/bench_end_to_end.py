@@ -56,7 +56,7 @@ class CoreClock:
 
 
 class TimedPlan:
-    """A RegularPlan whose add/finish calls are timed."""
+    """A RegularPlan whose calls into the core (add, finish, finish_into, s_range) are timed."""
 
     def __init__(self, clock, plan):
         self._plan, self._clock = plan, clock
@@ -66,6 +66,12 @@ class TimedPlan:
 
     def finish(self, *a, **k):
         return self._clock.wrap(self._plan.finish)(*a, **k)
+
+    def finish_into(self, *a, **k):
+        return self._clock.wrap(self._plan.finish_into)(*a, **k)
+
+    def s_range(self, *a, **k):
+        return self._clock.wrap(self._plan.s_range)(*a, **k)
 
     def __getattr__(self, name):
         return getattr(self._plan, name)

@@ -14,6 +14,7 @@ import numpy.typing as npt
 from typing_extensions import Self
 
 __all__ = [
+    "factor_table_eval",
     "grid_amplitudes",
     "gridded_fine_size",
     "gridded_limits",
@@ -101,6 +102,20 @@ class RegularPlan:
         threads: int | None = None,
     ) -> None: ...
     def finish(self, slot: int, *, threads: int | None = None) -> npt.NDArray[np.complex128]: ...
+    def finish_into(
+        self,
+        slot: int,
+        out: npt.NDArray[np.complex128],
+        table: npt.NDArray[np.complex128],
+        s0: float,
+        h: float,
+        *,
+        u: npt.NDArray[np.float64] | None = None,
+        threads: int | None = None,
+    ) -> None:
+        """Add F(q)·S(q) of the slot to `out`, F = table(|q|/4π)·exp(−½ qᵀUq) (cubic interpolation)."""
+    def s_range(self, *, threads: int | None = None) -> tuple[float, float]:
+        """Smallest and largest s = |q|/4π over the points (Å⁻¹)."""
 
 @final
 class PointPlan:
@@ -129,7 +144,25 @@ class PointPlan:
         threads: int | None = None,
     ) -> None: ...
     def finish(self, slot: int, *, threads: int | None = None) -> npt.NDArray[np.complex128]: ...
+    def finish_into(
+        self,
+        slot: int,
+        out: npt.NDArray[np.complex128],
+        table: npt.NDArray[np.complex128],
+        s0: float,
+        h: float,
+        *,
+        u: npt.NDArray[np.float64] | None = None,
+        threads: int | None = None,
+    ) -> None:
+        """Add F(q)·S(q) of the slot to `out`, F = table(|q|/4π)·exp(−½ qᵀUq) (cubic interpolation)."""
+    def s_range(self, *, threads: int | None = None) -> tuple[float, float]:
+        """Smallest and largest s = |q|/4π over the points (Å⁻¹)."""
 
+def factor_table_eval(
+    table: npt.NDArray[np.complex128], s0: float, h: float, s: npt.NDArray[np.float64]
+) -> npt.NDArray[np.complex128]:
+    """The factor table (values at s0 + k·h) interpolated at `s` as the gridded read-out does."""
 def gridded_kernel_width(tol: float, upsample: float, *, points: bool = False) -> int: ...
 def gridded_limits() -> tuple[float, int]:
     """(min_tol, max_width): the tightest tolerance and widest kernel of the gridded path."""

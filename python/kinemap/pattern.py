@@ -56,14 +56,13 @@ class Pattern:
             raise InvalidInputError(f"`grid` must be a kinemap.QGrid, got {type(grid).__name__}")
         self.grid = grid
         self.amplitude = None if amplitude is None else np.asarray(amplitude, dtype=np.complex128)
-        if intensity is None:
-            a = self.amplitude
-            assert a is not None  # refused above when both are missing
-            intensity = a.real * a.real + a.imag * a.imag
-        intensity = np.asarray(intensity)
-        if intensity.dtype.kind == "c":
-            raise InvalidInputError("`intensity` must be real, got a complex array (pass amplitudes as `amplitude`)")
-        self._intensity = np.asarray(intensity, dtype=np.float64)
+        # |A|² is formed on first use (a pass over the map that many callers never need).
+        self._intensity: np.ndarray | None = None
+        if intensity is not None:
+            intensity = np.asarray(intensity)
+            if intensity.dtype.kind == "c":
+                raise InvalidInputError("`intensity` must be real, got a complex array (pass amplitudes as `amplitude`)")
+            self._intensity = np.asarray(intensity, dtype=np.float64)
         self.sigma = None if sigma is None else np.asarray(sigma, dtype=np.float64)
         for name, arr in (("amplitude", self.amplitude), ("intensity", self._intensity), ("sigma", self.sigma)):
             if arr is not None and arr.shape != tuple(grid.shape):
@@ -130,6 +129,10 @@ class Pattern:
 
     @property
     def intensity(self) -> np.ndarray:
+        if self._intensity is None:
+            a = self.amplitude
+            assert a is not None  # a Pattern is refused without amplitude or intensity
+            self._intensity = a.real * a.real + a.imag * a.imag
         return self._intensity
 
     @property

@@ -5,6 +5,14 @@ groups with this table. The form factor of a label depends only on s = |q|/4π, 
 computed once per q-block and kept for the following atom chunks of a streamed model (within
 a memory budget); the Debye–Waller factor of a group is a cheap exp on top. Only groups with
 an anisotropic U need the q-vectors themselves (T = exp(−½ qᵀUq)).
+
+The gridded path does not evaluate factors per q-point in Python: :func:`group_table`
+tabulates a group's f(s)·exp(−B s²) on uniform nodes over the grid's range of s, checks the
+core's cubic interpolation of the table against the probe itself at three points inside
+every interval, and refines until the interpolation error is far below the requested
+tolerance; the core then evaluates the table (and exp(−½ qᵀUq)) while it reads out the group
+sums. A factor the table cannot follow (a probe with kinks, such as a custom table with
+linear interpolation) returns None and is evaluated per point as before.
 """
 
 from __future__ import annotations
@@ -12,6 +20,8 @@ from __future__ import annotations
 from collections.abc import Callable, Hashable
 
 import numpy as np
+
+from .. import _core
 
 #: Bytes of cached form factors kept across atom chunks.
 CACHE_BYTES = 256 << 20
@@ -78,6 +88,67 @@ class FactorTables:
         return out
 
 
+#: Interpolation error allowed per point, as a fraction of the requested relative tolerance.
+TABLE_SHARE = 1e-2
+#: Floor of the allowed relative interpolation error (rounding of the probe's own values).
+TABLE_FLOOR = 2e-15
+#: Most nodes of one group's table (16 bytes each).
+TABLE_MAX_NODES = (1 << 16) + 1
+#: Where inside each interval the table is checked (fractions of the step).
+_CHECK_AT = (0.25, 0.5, 0.75)
+
+
+def group_table(probe, groups, g: int, s_lo: float, s_hi: float,
+                tol: float) -> tuple[np.ndarray, float, float] | None:
+    """A checked table of group `g`'s factor f(s)·exp(−B s²) for s in [s_lo, s_hi].
+
+    Parameters
+    ----------
+    probe : Probe
+        Supplies f(s) (``probe.scattering_factors``).
+    groups : Groups
+        The group's label and displacement (B only: an anisotropic U is applied by the core).
+    g : int
+        The group.
+    s_lo, s_hi : float
+        Range of s = |q|/4π of the points (Å⁻¹).
+    tol : float
+        The gridded path's relative tolerance.
+
+    Returns
+    -------
+    (values, s0, h) or None
+        The factor at s0 + k·h, k < len(values), whose cubic interpolation by the core is
+        within max(``TABLE_SHARE``·tol, ``TABLE_FLOOR``) of the probe's value (relative to
+        max(|f(s)|, 10⁻³·max|f|)) at 3 points inside every interval; None when no table of up
+        to ``TABLE_MAX_NODES`` nodes is.
+    """
+    label = groups.labels[g]
+    b = 0.0 if groups.u_aniso is not None else float(groups.b_iso[g])
+
+    def factor(s: np.ndarray) -> np.ndarray:
+        f = probe.scattering_factors([label], s)[0]
+        return f * np.exp(-b * s * s) if b != 0.0 else f
+
+    span = s_hi - s_lo
+    if span <= 1e-12 * max(1.0, s_hi):  # one |q| for all points: a constant table
+        return np.repeat(factor(np.array([s_lo])), 4), float(s_lo), 1.0
+    target = max(TABLE_SHARE * tol, TABLE_FLOOR)
+    n = 33
+    while n <= TABLE_MAX_NODES:
+        h = span / (n - 1)
+        k = np.arange(n - 1, dtype=np.float64)
+        checks = np.concatenate([s_lo + (k + a) * h for a in _CHECK_AT])
+        values = factor(np.concatenate([s_lo + np.arange(n) * h, checks]))
+        nodes, exact = values[:n], values[n:]
+        err = np.abs(_core.factor_table_eval(nodes, s_lo, h, checks) - exact)
+        scale = np.maximum(np.abs(exact), 1e-3 * np.abs(nodes).max())
+        if np.all(err <= target * scale):
+            return nodes, float(s_lo), float(h)
+        n = 2 * (n - 1) + 1
+    return None
+
+
 def row_s(rows: np.ndarray, step: np.ndarray, n: int) -> np.ndarray:
     """s = |q|/4π of the points rows[r] + k·step (k < n), row-major, without forming q."""
     k = np.arange(n, dtype=np.float64)
@@ -89,4 +160,4 @@ def row_s(rows: np.ndarray, step: np.ndarray, n: int) -> np.ndarray:
     return (np.sqrt(q2) / (4.0 * np.pi)).reshape(-1)
 
 
-__all__ = ["FactorTables", "row_s", "CACHE_BYTES"]
+__all__ = ["FactorTables", "group_table", "row_s", "CACHE_BYTES", "TABLE_SHARE", "TABLE_FLOOR", "TABLE_MAX_NODES"]

@@ -260,3 +260,84 @@ fn phases_beyond_the_sincos_range_are_refused() {
     .unwrap_err();
     assert!(e.to_string().contains("1e11 rad"), "{e}");
 }
+
+/// `finish_into` adds `F(q)·S(q)` with `F` read from a table in `s = |q|/4π` (and
+/// `exp(−½ qᵀUq)`): checked against the defining sum times `F` evaluated directly, with a
+/// Gaussian `f(s) = 3 exp(−2 s²)` whose table is fine enough to be exact to rounding.
+#[test]
+fn finish_into_applies_the_group_factor_at_every_point() {
+    use kinemap_core::gridded::{FactorTable, GroupFactor};
+    use std::f64::consts::PI;
+    let (pos, w) = model(300, 20.0, 4);
+    let f = |s: f64| 3.0 * (-2.0 * s * s).exp();
+    let u = [[0.02, 0.004, 0.0], [0.004, 0.01, 0.0], [0.0, 0.0, 0.03]];
+    let factor_at = |q: [f64; 3], aniso: bool| {
+        let s = (q[0] * q[0] + q[1] * q[1] + q[2] * q[2]).sqrt() / (4.0 * PI);
+        let mut quq = 0.0;
+        for i in 0..3 {
+            for j in 0..3 {
+                quq += q[i] * u[i][j] * q[j];
+            }
+        }
+        f(s) * if aniso { (-0.5 * quq).exp() } else { 1.0 }
+    };
+    let (origin, steps, shape) = (
+        [-1.3, 0.4, 0.9],
+        vec![[0.21, 0.02, 0.0], [0.01, 0.19, -0.03]],
+        vec![15usize, 12],
+    );
+    let q = grid_points(origin, &steps, &shape);
+    let sums = direct(&pos, &w, &q);
+    let n = 4001;
+    for aniso in [false, true] {
+        let mut plan = RegularPlan::new(origin, &steps, &shape, 1e-10, 2.0).unwrap();
+        plan.add(&pos, &w, &vec![0; pos.len()], None).unwrap();
+        let (lo, hi) = plan.s_range(None).unwrap();
+        let s_all: Vec<f64> = q
+            .iter()
+            .map(|v| (v[0] * v[0] + v[1] * v[1] + v[2] * v[2]).sqrt() / (4.0 * PI))
+            .collect();
+        let want_lo = s_all.iter().cloned().fold(f64::INFINITY, f64::min);
+        let want_hi = s_all.iter().cloned().fold(0.0, f64::max);
+        assert!((lo - want_lo).abs() < 1e-14 && (hi - want_hi).abs() < 1e-14);
+        let h = (hi - lo) / (n - 1) as f64;
+        let table = (0..n)
+            .map(|k| Complex64::new(f(lo + k as f64 * h), 0.0))
+            .collect();
+        let gf =
+            GroupFactor::new(FactorTable::new(lo, h, table).unwrap(), aniso.then_some(u)).unwrap();
+        // Start from ones: finish_into adds.
+        let mut out = vec![Complex64::new(1.0, 0.0); q.len()];
+        plan.finish_into(0, &gf, &mut out, None).unwrap();
+        let want: Vec<Complex64> = sums
+            .iter()
+            .zip(&q)
+            .map(|(s, v)| s * factor_at(*v, aniso) + 1.0)
+            .collect();
+        let e = rel_l2(&out, &want);
+        assert!(e <= 1e-10, "aniso {aniso}: error {e:e}");
+        // The slot is gone: a second read-out adds nothing, and a wrong length is an error.
+        let before = out.clone();
+        plan.finish_into(0, &gf, &mut out, None).unwrap();
+        assert_eq!(out, before);
+        assert!(plan.finish_into(0, &gf, &mut out[1..], None).is_err());
+    }
+    // The same for arbitrary points.
+    let (lo_r, hi_r) = bounds(&pos);
+    let mut plan = PointPlan::new(&q, lo_r, hi_r, 1e-10, 2.0).unwrap();
+    plan.add(&pos, &w, &vec![0; pos.len()], None).unwrap();
+    let (lo, hi) = plan.s_range(Some(1)).unwrap();
+    let h = (hi - lo) / (n - 1) as f64;
+    let table = (0..n)
+        .map(|k| Complex64::new(f(lo + k as f64 * h), 0.0))
+        .collect();
+    let gf = GroupFactor::new(FactorTable::new(lo, h, table).unwrap(), Some(u)).unwrap();
+    let mut out = vec![Complex64::new(0.0, 0.0); q.len()];
+    plan.finish_into(0, &gf, &mut out, None).unwrap();
+    let want: Vec<Complex64> = sums
+        .iter()
+        .zip(&q)
+        .map(|(s, v)| s * factor_at(*v, true))
+        .collect();
+    assert!(rel_l2(&out, &want) <= 1e-10);
+}

@@ -3,8 +3,10 @@
 
 use crate::arrays;
 use crate::errors::{invalid, CoreErr};
-use kinemap_core::gridded::sizing;
-use numpy::{Complex64, IntoPyArray, PyArray1, PyReadonlyArray1, PyReadonlyArray2};
+use kinemap_core::gridded::{sizing, FactorTable, GroupFactor};
+use numpy::{
+    Complex64, IntoPyArray, PyArray1, PyReadonlyArray1, PyReadonlyArray2, PyReadwriteArray1,
+};
 use pyo3::prelude::*;
 
 fn vec3(a: &PyReadonlyArray1<'_, f64>, name: &str) -> PyResult<[f64; 3]> {
@@ -88,6 +90,38 @@ impl PyRegularPlan {
         let inner = &mut self.inner;
         finished(py, || inner.finish(slot, threads))
     }
+
+    /// finish_into(slot, out, table, s0, h, *, u=None, threads=None): adds the group's
+    /// amplitudes F(q)·S(q) to `out` (complex128, one value per grid point, C order), with
+    /// F(q) = table(|q|/4π)·exp(−½ qᵀUq): `table` holds f(s) at s0 + k·h, interpolated by
+    /// local cubics; `u` (3×3, Å²) only for anisotropic displacements. Frees the slot's grid.
+    #[pyo3(signature = (slot, out, table, s0, h, *, u=None, threads=None))]
+    #[allow(clippy::too_many_arguments)]
+    fn finish_into<'py>(
+        &mut self,
+        py: Python<'py>,
+        slot: usize,
+        out: PyReadwriteArray1<'py, Complex64>,
+        table: PyReadonlyArray1<'py, Complex64>,
+        s0: f64,
+        h: f64,
+        u: Option<PyReadonlyArray2<'py, f64>>,
+        threads: Option<usize>,
+    ) -> PyResult<()> {
+        let inner = &mut self.inner;
+        accumulate(py, out, &table, s0, h, u.as_ref(), |f, o| {
+            inner.finish_into(slot, f, o, threads)
+        })
+    }
+
+    /// s_range(*, threads=None) -> (float, float): smallest and largest s = |q|/4π over the
+    /// grid's points (Å⁻¹).
+    #[pyo3(signature = (*, threads=None))]
+    fn s_range(&self, py: Python<'_>, threads: Option<usize>) -> PyResult<(f64, f64)> {
+        let inner = &self.inner;
+        py.detach(|| inner.s_range(threads))
+            .map_err(|e| CoreErr(e).into())
+    }
 }
 
 /// PointPlan(q, lo, hi, tol, upsample): gridded (type-3) sums at arbitrary q-points (M, 3)
@@ -162,6 +196,86 @@ impl PyPointPlan {
         let inner = &mut self.inner;
         finished(py, || inner.finish(slot, threads))
     }
+
+    /// finish_into(slot, out, table, s0, h, *, u=None, threads=None): adds the group's
+    /// amplitudes F(q)·S(q) at the plan's q-points to `out`; F as for RegularPlan.finish_into.
+    #[pyo3(signature = (slot, out, table, s0, h, *, u=None, threads=None))]
+    #[allow(clippy::too_many_arguments)]
+    fn finish_into<'py>(
+        &mut self,
+        py: Python<'py>,
+        slot: usize,
+        out: PyReadwriteArray1<'py, Complex64>,
+        table: PyReadonlyArray1<'py, Complex64>,
+        s0: f64,
+        h: f64,
+        u: Option<PyReadonlyArray2<'py, f64>>,
+        threads: Option<usize>,
+    ) -> PyResult<()> {
+        let inner = &mut self.inner;
+        accumulate(py, out, &table, s0, h, u.as_ref(), |f, o| {
+            inner.finish_into(slot, f, o, threads)
+        })
+    }
+
+    /// s_range(*, threads=None) -> (float, float): smallest and largest s = |q|/4π over the
+    /// plan's q-points (Å⁻¹).
+    #[pyo3(signature = (*, threads=None))]
+    fn s_range(&self, py: Python<'_>, threads: Option<usize>) -> PyResult<(f64, f64)> {
+        let inner = &self.inner;
+        py.detach(|| inner.s_range(threads))
+            .map_err(|e| CoreErr(e).into())
+    }
+}
+
+/// factor_table_eval(table, s0, h, s) -> complex128 array: the factor table `table` (f at
+/// s0 + k·h) interpolated at `s` exactly as the gridded path's read-out does.
+#[pyfunction(name = "factor_table_eval")]
+pub fn factor_table_eval_py<'py>(
+    py: Python<'py>,
+    table: PyReadonlyArray1<'py, Complex64>,
+    s0: f64,
+    h: f64,
+    s: PyReadonlyArray1<'py, f64>,
+) -> PyResult<Bound<'py, PyArray1<Complex64>>> {
+    let t = factor_table(&table, s0, h)?;
+    let sv = arrays::slice1(&s, "s", None)?;
+    let out: Vec<Complex64> = py.detach(|| sv.iter().map(|&x| t.eval(x)).collect());
+    Ok(out.into_pyarray(py))
+}
+
+fn factor_table(table: &PyReadonlyArray1<'_, Complex64>, s0: f64, h: f64) -> PyResult<FactorTable> {
+    let values = arrays::slice1(table, "table", None)?.to_vec();
+    Ok(FactorTable::new(s0, h, values).map_err(CoreErr)?)
+}
+
+/// Build a group's factor from its table and optional U, then run `finish` on `out` without
+/// the GIL.
+fn accumulate<'py, F>(
+    py: Python<'py>,
+    mut out: PyReadwriteArray1<'py, Complex64>,
+    table: &PyReadonlyArray1<'py, Complex64>,
+    s0: f64,
+    h: f64,
+    u: Option<&PyReadonlyArray2<'py, f64>>,
+    finish: F,
+) -> PyResult<()>
+where
+    F: FnOnce(&GroupFactor, &mut [Complex64]) -> kinemap_core::Result<()> + Send,
+{
+    let u = match u {
+        None => None,
+        Some(a) => {
+            let m = arrays::slice2(a, "u", (3, 3))?;
+            Some([[m[0], m[1], m[2]], [m[3], m[4], m[5]], [m[6], m[7], m[8]]])
+        }
+    };
+    let factor = GroupFactor::new(factor_table(table, s0, h)?, u).map_err(CoreErr)?;
+    let o = out
+        .as_slice_mut()
+        .map_err(|_| invalid("`out` must be C-contiguous and writable".to_string()))?;
+    py.detach(|| finish(&factor, o)).map_err(CoreErr)?;
+    Ok(())
 }
 
 /// gridded_kernel_width(tol, upsample, *, points=False) -> int: kernel points per axis the

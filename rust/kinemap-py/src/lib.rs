@@ -141,11 +141,13 @@ mod _core {
     use super::grid_amplitudes_py;
     #[pymodule_export]
     use super::gridded::{
+        factor_table_eval_py, gridded_kernel_width_py, PyPointPlan, PyRegularPlan,
+    };
+    #[pymodule_export]
+    use super::gridded::{
         gridded_fine_size_py, gridded_limits_py, gridded_point_dims_py,
         gridded_upsample_choices_py, gridded_usable_py,
     };
-    #[pymodule_export]
-    use super::gridded::{gridded_kernel_width_py, PyPointPlan, PyRegularPlan};
     #[pymodule_export]
     use super::pairs::{debye_sums_py, pair_index_py, PyPairHistogram};
     #[pymodule_export]

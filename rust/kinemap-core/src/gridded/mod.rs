@@ -11,15 +11,18 @@
 //! * [`PointPlan`]: arbitrary q-points by the type-3 transform.
 //!
 //! Plans keep one fine grid per scattering group ("slot"), so atom chunks stream into the
-//! same grids; the caller combines the group sums with form factors at the end.
+//! same grids; at the end the group sums are combined with each group's factor (a table in
+//! `s = |q|/4π`, see [`factor`]) while they are read out.
 //! Spreading is parallel without data races and gives the same result for any thread count
 //! (see [`spread`]).
 
+pub mod factor;
 pub mod fft;
 pub mod kernel;
 pub mod plan;
 pub mod sizing;
 pub mod spread;
 
+pub use factor::{FactorTable, GroupFactor};
 pub use kernel::{width_for, Kernel, MAX_WIDTH};
 pub use plan::{PointPlan, RegularPlan};

@@ -6,6 +6,7 @@
 //! atom count. `finish(slot)` turns a slot's grid into the group sums
 //! `S_g(q) = Σ_{j in g} w_j exp(i q·r_j)` on the requested q-points and frees the grid.
 
+use super::factor::GroupFactor;
 use super::fft::{centred, fft3};
 use super::kernel::Kernel;
 use super::spread::{interp, spread, Layout};
@@ -322,15 +323,81 @@ impl RegularPlan {
     /// Group sums `S(q)` of slot `slot` on the grid (row-major over the grid shape); frees the
     /// slot's fine grid. A slot that received no atoms gives zeros.
     pub fn finish(&mut self, slot: usize, threads: Option<usize>) -> Result<Vec<Complex64>> {
+        let mut out = zeroed_complex(self.n_points(), "the group sums")?;
+        self.readout(slot, None, &mut out, threads)?;
+        Ok(out)
+    }
+
+    /// Adds the group's amplitudes `F(q)·S(q)` of slot `slot` to `out` (row-major over the
+    /// grid shape), computing `F` at each point from its q-vector; frees the slot's fine grid.
+    pub fn finish_into(
+        &mut self,
+        slot: usize,
+        factor: &GroupFactor,
+        out: &mut [Complex64],
+        threads: Option<usize>,
+    ) -> Result<()> {
+        self.readout(slot, Some(factor), out, threads)
+    }
+
+    /// q-vector of every output point of row `r` (layout axes 0 and 1), as a function of the
+    /// index along the last layout axis.
+    fn row_q(&self, r: usize) -> impl Fn(usize) -> [f64; 3] + use<> {
+        let od = self.out_dims;
+        let (st, c) = (self.steps, self.centre);
+        let k = [
+            (r / od[1]) as f64 - (od[0] / 2) as f64,
+            (r % od[1]) as f64 - (od[1] / 2) as f64,
+        ];
+        let base: [f64; 3] =
+            [0, 1, 2].map(|d| mul_add(k[1], st[1][d], mul_add(k[0], st[0][d], c[d])));
+        let c2 = (od[2] / 2) as f64;
+        move |i2| [0, 1, 2].map(|d| mul_add(i2 as f64 - c2, st[2][d], base[d]))
+    }
+
+    /// Smallest and largest `s = |q|/4π` over the grid's points (Å⁻¹).
+    pub fn s_range(&self, threads: Option<usize>) -> Result<(f64, f64)> {
+        let od = self.out_dims;
+        crate::pool::run(threads, || {
+            (0..od[0] * od[1])
+                .into_par_iter()
+                .map(|r| {
+                    let q = self.row_q(r);
+                    (0..od[2]).fold((f64::INFINITY, 0.0f64), |(lo, hi), i2| {
+                        let v = q(i2);
+                        let s = (v[0] * v[0] + v[1] * v[1] + v[2] * v[2]).sqrt() * (0.25 / PI);
+                        (lo.min(s), hi.max(s))
+                    })
+                })
+                .reduce(|| (f64::INFINITY, 0.0), |a, b| (a.0.min(b.0), a.1.max(b.1)))
+        })
+    }
+
+    /// Transform slot `slot`'s fine grid and add its deconvolved sums, times `factor` when
+    /// given, to `out`.
+    fn readout(
+        &mut self,
+        slot: usize,
+        factor: Option<&GroupFactor>,
+        out: &mut [Complex64],
+        threads: Option<usize>,
+    ) -> Result<()> {
         let m = self.n_points();
+        if out.len() != m {
+            return Err(Error::Shape(format!(
+                "the output must have one value per grid point ({m}), got {}",
+                out.len()
+            )));
+        }
         let Some(mut grid) = self.slots.get_mut(slot).and_then(|g| g.take()) else {
-            return filled(m, Complex64::new(0.0, 0.0), "the group sums");
+            return Ok(());
         };
         let dims = self.layout.dims;
         let od = self.out_dims;
         let full: Vec<Vec<usize>> = dims.iter().map(|&n| (0..n).collect()).collect();
         let win: Vec<Vec<usize>> = (0..3).map(|l| centred(od[l], dims[l])).collect();
         let dc = &self.deconv;
+        let this = &*self;
         crate::pool::run(threads, || {
             fft3(
                 &mut grid,
@@ -338,17 +405,25 @@ impl RegularPlan {
                 [&full[0], &full[1], &full[2]],
                 [&win[0], &win[1], &win[2]],
             );
-            let mut out = zeroed_complex(m, "the group sums")?;
             out.par_chunks_mut(od[2]).enumerate().for_each(|(r, row)| {
                 let (i0, i1) = (r / od[1], r % od[1]);
                 let f01 = dc[0][i0] * dc[1][i1];
                 let base = (win[0][i0] * dims[1] + win[1][i1]) * dims[2];
-                for (i2, o) in row.iter_mut().enumerate() {
-                    *o = grid[base + win[2][i2]] * (f01 * dc[2][i2]);
+                match factor {
+                    None => {
+                        for (i2, o) in row.iter_mut().enumerate() {
+                            *o += grid[base + win[2][i2]] * (f01 * dc[2][i2]);
+                        }
+                    }
+                    Some(f) => {
+                        let q = this.row_q(r);
+                        for (i2, o) in row.iter_mut().enumerate() {
+                            *o += grid[base + win[2][i2]] * (f01 * dc[2][i2]) * f.at(q(i2));
+                        }
+                    }
                 }
             });
-            Ok(out)
-        })?
+        })
     }
 }
 
@@ -528,10 +603,63 @@ impl PointPlan {
     /// Group sums `S(q)` of slot `slot` at the plan's q-points (in their order); frees the
     /// slot's grid.
     pub fn finish(&mut self, slot: usize, threads: Option<usize>) -> Result<Vec<Complex64>> {
+        match self.sums(slot, threads)? {
+            Some(out) => Ok(out),
+            None => filled(self.q.len(), Complex64::new(0.0, 0.0), "the group sums"),
+        }
+    }
+
+    /// Adds the group's amplitudes `F(q)·S(q)` of slot `slot` to `out` (the plan's q-points
+    /// in their order); frees the slot's grid.
+    pub fn finish_into(
+        &mut self,
+        slot: usize,
+        factor: &GroupFactor,
+        out: &mut [Complex64],
+        threads: Option<usize>,
+    ) -> Result<()> {
+        let m = self.q.len();
+        if out.len() != m {
+            return Err(Error::Shape(format!(
+                "the output must have one value per q-point ({m}), got {}",
+                out.len()
+            )));
+        }
+        let Some(sums) = self.sums(slot, threads)? else {
+            return Ok(());
+        };
+        let q = &self.q;
+        crate::pool::run(threads, || {
+            out.par_iter_mut()
+                .zip(sums.par_iter())
+                .zip(q.par_iter())
+                .with_min_len(1024)
+                .for_each(|((o, s), v)| *o += s * factor.at(*v))
+        })
+    }
+
+    /// Smallest and largest `s = |q|/4π` over the plan's q-points (Å⁻¹).
+    pub fn s_range(&self, threads: Option<usize>) -> Result<(f64, f64)> {
+        let q = &self.q;
+        let (lo, hi) = crate::pool::run(threads, || {
+            q.par_iter()
+                .with_min_len(4096)
+                .map(|v| v[0] * v[0] + v[1] * v[1] + v[2] * v[2])
+                .fold(
+                    || (f64::INFINITY, 0.0f64),
+                    |(lo, hi), x| (lo.min(x), hi.max(x)),
+                )
+                .reduce(|| (f64::INFINITY, 0.0), |a, b| (a.0.min(b.0), a.1.max(b.1)))
+        })?;
+        Ok((lo.sqrt() * (0.25 / PI), hi.sqrt() * (0.25 / PI)))
+    }
+
+    /// The sums of slot `slot` (None when it received no atoms); frees the slot's grid.
+    fn sums(&mut self, slot: usize, threads: Option<usize>) -> Result<Option<Vec<Complex64>>> {
         let m = self.q.len();
         let level = kernel_level()?;
         let Some(grid1) = self.slots.get_mut(slot).and_then(|g| g.take()) else {
-            return filled(m, Complex64::new(0.0, 0.0), "the group sums");
+            return Ok(None);
         };
         let (d1, d2) = (self.lay1.dims, self.lay2.dims);
         let ker = &self.kernel;
@@ -619,7 +747,7 @@ impl PointPlan {
             out.par_iter_mut()
                 .zip(post.par_iter())
                 .for_each(|(o, f)| *o *= f);
-            Ok(out)
+            Ok(Some(out))
         })?
     }
 }
