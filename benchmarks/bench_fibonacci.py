@@ -28,6 +28,7 @@ import numpy as np
 
 import kinemap as km
 from kinemap import quasi
+from kinemap.model import AtomSourceBase
 
 TAU = (1.0 + math.sqrt(5.0)) / 2.0
 PEAKS = [(1, 0), (0, 1), (1, 1)]
@@ -35,7 +36,7 @@ STREAM_ABOVE = 10_000_000
 CHUNK = 1 << 22
 
 
-class ChainSource:
+class ChainSource(AtomSourceBase):
     """The first `n` points of a chain as an atom source (generated chunk by chunk)."""
 
     def __init__(self, chain, n: int):
@@ -43,13 +44,13 @@ class ChainSource:
 
     def iter_chunks(self, chunk_atoms: int):
         for ps in self.chain.iter_chain(self.n_atoms, chunk_points=min(int(chunk_atoms), CHUNK)):
-            yield ps.to_model("A")
+            yield km.Model(ps.positions, "A")
 
     def species_labels(self) -> list[str]:
         return ["A"]
 
-    def describe(self) -> dict:
-        return {"generator": "fibonacci chain", "n_points": self.n_atoms}
+    def _extra_description(self) -> dict:
+        return {"generator": "fibonacci chain"}
 
 
 def analytic(h: int, hp: int) -> tuple[float, float]:
@@ -85,9 +86,11 @@ def main() -> None:
     ap.add_argument("--big", action="store_true", help="add N = 10^8 (streamed)")
     ap.add_argument("--line", type=int, default=33, help="q-points per peak line (odd)")
     ap.add_argument("--png", default="fibonacci_scaling.png", help="where to draw the plot")
+    ap.add_argument("--max-exp", type=int, default=None, help="largest N as a power of 10 (default 7, 8 with --big)")
     args = ap.parse_args()
     n_line = args.line | 1
-    sizes = [10 ** e for e in range(3, 9 if args.big else 8)]
+    top = args.max_exp if args.max_exp is not None else (8 if args.big else 7)
+    sizes = [10 ** e for e in range(3, top + 1)]
     chain = quasi.fibonacci()
     m = 3 * n_line
     # Lines span ±5·10⁻⁴ Å⁻¹ in k around each peak (the peaks are ~1/(1.38·N) wide).
@@ -99,7 +102,7 @@ def main() -> None:
     print(f"{'N':>10} {'path':>8} {'thr':>3} {'time_s':>9} {'t/(N·M) ns':>11} {'rate':>10} "
           + " ".join(f"{'err' + str(p):>13}" for p in PEAKS) + f" {'N·max err':>10}")
     for n in sizes:
-        source = ChainSource(chain, n) if n > STREAM_ABOVE else chain.chain_points(0, n).to_model("A")
+        source = ChainSource(chain, n) if n > STREAM_ABOVE else km.Model(chain.chain_points(0, n).positions, "A")
         for method in ("exact", "gridded"):
             for threads in (1, 2):
                 t, got = run(source, lines, method, threads)

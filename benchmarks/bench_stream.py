@@ -55,6 +55,7 @@ class TimedSource:
         self.read_s = 0.0
         self.n_atoms = src.n_atoms
         self.cell = src.cell
+        self.box = src.box
 
     def species_labels(self):
         t0 = time.perf_counter()
