@@ -15,6 +15,7 @@ from typing import Protocol, runtime_checkable
 
 import numpy as np
 
+from . import _core
 from ._shared.memory import check_fits
 from ._shared.validate import real_array
 from .errors import InvalidInputError
@@ -297,6 +298,26 @@ class Model:
         self._groups: Groups | None = None
         self._counts: dict[str, int] | None = None
         self._codes: tuple[np.ndarray, np.ndarray] | None = codes
+        self._core_atoms: tuple[Groups, _core.AtomSet] | None = None
+
+    def __getstate__(self) -> dict:
+        state = dict(self.__dict__)
+        state["_core_atoms"] = None  # the core's copy stays in this process (rebuilt on use)
+        return state
+
+    def core_atoms(self) -> tuple[Groups, _core.AtomSet]:
+        """The groups and the core's padded copy of the atoms (positions, occupancy, group
+        of each atom) that the exact kernels read, built once and kept while the model lives
+        (32 bytes an atom), so repeated calls on the same model (lines, q-blocks, peaks) do
+        not rebuild it."""
+        if self._core_atoms is None:
+            groups = self.groups()
+            # Aligned, C-ordered float64 (arrays rebuilt from pickled buffers can be unaligned).
+            atoms = _core.AtomSet(np.require(self.positions, np.float64, ["C", "A"]),
+                                  np.require(self.occupancy, np.float64, ["C", "A"]),
+                                  groups.index, max(groups.n_groups, 1))
+            self._core_atoms = (groups, atoms)
+        return self._core_atoms
 
     def _label_codes(self) -> tuple[np.ndarray, np.ndarray]:
         """Sorted distinct labels and each atom's index into them (computed once)."""

@@ -85,10 +85,9 @@ class Layout:
 
     @staticmethod
     def prepare(chunk):
-        """(groups, AtomSet) of an atom chunk: what the core needs, reusable across q-blocks."""
-        groups = chunk.groups()
-        return groups, _core.AtomSet(_aligned(chunk.positions), _aligned(chunk.occupancy), groups.index,
-                                     groups.n_groups)
+        """(groups, AtomSet) of an atom chunk: what the core needs, reusable across q-blocks
+        (kept by the model, see ``Model.core_atoms``)."""
+        return chunk.core_atoms()
 
     def add_chunk(self, chunk, tables: FactorTables, out: np.ndarray, u0: int, u1: int, threads,
                   prog: Progress | None = None, prepared=None) -> None:
