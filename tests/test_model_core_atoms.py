@@ -27,3 +27,17 @@ def test_core_atoms_are_built_once_and_left_out_of_pickles():
     lab = (model.species == "Ni").astype(int)
     want = (f[lab].T * np.exp(-np.outer(s * s, b)) * np.exp(1j * q @ model.positions.T)).sum(axis=1)
     np.testing.assert_allclose(first, want, rtol=1e-10, atol=1e-9 * np.abs(want).max())
+
+
+def test_pieces_take_their_labels_from_the_whole_model():
+    # A piece without some species lists only the labels it has, with the right counts and
+    # groups; reference: counting the labels of the piece directly.
+    species = np.array(["O"] * 5 + ["Fe"] * 3 + ["Ni"] * 4 + ["Fe"] * 2)
+    model = km.Model(np.arange(42.0).reshape(14, 3), species, b_iso={"Fe": 0.1, "Ni": 0.2, "O": 0.3})
+    for index in (slice(5, 12), slice(0, 5), np.array([13, 0, 8]), species != "Fe"):
+        piece = model.subset(index)
+        labels, counts = np.unique(species[index], return_counts=True)
+        assert piece.species_counts() == dict(zip(labels.tolist(), counts.tolist()))
+        g = piece.groups()
+        assert [g.labels[i] for i in g.index] == species[index].tolist()
+        assert np.array_equal(g.b_iso[g.index], piece.b_iso)

@@ -453,9 +453,20 @@ class Model:
         m.occupancy = np.ascontiguousarray(self.occupancy[index])
         m.b_iso = np.ascontiguousarray(self.b_iso[index])
         m.u_aniso = None if self.u_aniso is None else self.u_aniso[index]
-        m._freeze()
         if isinstance(index, slice) and index == slice(None):  # same atoms: same groups
-            m._groups, m._counts, m._codes = self._groups, self._counts, self._codes
+            m._freeze(self._codes)
+            m._groups, m._counts = self._groups, self._counts
+            return m
+        # The labels of a piece follow from this model's (factorised once, kept): integer
+        # work instead of comparing every string label of every piece again.
+        labels, codes = self._label_codes()
+        sub = codes[index]
+        present = np.flatnonzero(np.bincount(sub, minlength=len(labels))) if len(sub) else np.zeros(0, int)
+        if len(present) < len(labels):
+            remap = np.zeros(len(labels), dtype=np.int64)
+            remap[present] = np.arange(len(present))
+            labels, sub = labels[present], remap[sub]
+        m._freeze((labels, sub))
         return m
 
     def tiled(self, reps) -> Model:
