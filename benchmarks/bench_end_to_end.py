@@ -15,7 +15,9 @@ tables are real work):
 * exact: the same atoms into a 256 × 256 plane with ``km.scatter(method="exact")``.
 The time inside the core is measured by wrapping the core's entry points; "outside" is the
 rest of the ``km.scatter`` call (Python: validation, grouping, factor tables, reshaping).
-Each figure is the median of ``--repeats`` runs, all in this process, in one run.
+kinemap and finufft run back to back in each of ``--repeats`` repeats (after one warm-up of
+each); the ratios are taken per repeat and their median and range printed, so both see the
+same machine load.
 """
 
 from __future__ import annotations
@@ -78,6 +80,7 @@ class TimedPlan:
 
 
 def measure(model, grid, method, repeats, tol=1e-6):
+    """Per-repeat (total, core) seconds of ``km.scatter`` and the last pattern."""
     clock = CoreClock()
     real_plan = _core.RegularPlan
     real_grid = _core.grid_amplitudes
@@ -94,36 +97,43 @@ def measure(model, grid, method, repeats, tol=1e-6):
     finally:
         gridded_mod._core.RegularPlan = real_plan
         exact_mod._core.grid_amplitudes = real_grid
-    return statistics.median(totals), statistics.median(cores), pat
+    return totals, cores, pat
 
 
-def finufft_time(pos, groups, grid, tol, repeats):
-    """finufft's time for one type-1 transform per group (the group's atoms only), and for the
-    whole pipeline a user would run around it: the transforms plus the same X-ray form factors
-    and Debye–Waller factors (kinemap's probe tables) combined in NumPy."""
-    import finufft
+class Finufft:
+    """finufft on the same problem: one type-1 transform per group (the group's atoms only),
+    and the whole pipeline a user would run around it: the transforms plus the same X-ray form
+    factors and Debye–Waller factors (kinemap's probe tables) combined in NumPy. The inputs
+    (projected coordinates, phased weights, |q|) are prepared once and not timed."""
 
-    centre = grid.origin + (np.array(grid.shape) // 2) @ grid.steps
-    inputs = []
-    for g in range(groups.n_groups):
-        p = pos[groups.index == g]
-        x = [np.ascontiguousarray(np.remainder(p @ s + np.pi, 2 * np.pi) - np.pi) for s in grid.steps]
-        inputs.append((x, np.exp(1j * (p @ centre))))
-    probe = km.get_probe("xray")
-    s = np.linalg.norm(grid.q_vectors(), axis=1).reshape(grid.shape) / (4 * np.pi)
-    transforms, pipeline = [], []
-    for _ in range(repeats):
+    def __init__(self, pos, groups, grid, tol):
+        centre = grid.origin + (np.array(grid.shape) // 2) @ grid.steps
+        self.inputs = []
+        for g in range(groups.n_groups):
+            p = pos[groups.index == g]
+            x = [np.ascontiguousarray(np.remainder(p @ s + np.pi, 2 * np.pi) - np.pi) for s in grid.steps]
+            self.inputs.append((x, np.exp(1j * (p @ centre))))
+        self.s = np.linalg.norm(grid.q_vectors(), axis=1).reshape(grid.shape) / (4 * np.pi)
+        self.groups, self.shape, self.tol = groups, grid.shape, tol
+        self.probe = km.get_probe("xray")
+
+    def run(self) -> tuple[float, float]:
+        """Seconds of (the transforms, the whole pipeline)."""
+        import finufft
+
         t0 = time.perf_counter()
-        sums = [finufft.nufft3d1(x[0], x[1], x[2], c, grid.shape, eps=tol, isign=1) for x, c in inputs]
+        sums = [finufft.nufft3d1(x[0], x[1], x[2], c, self.shape, eps=self.tol, isign=1) for x, c in self.inputs]
         t1 = time.perf_counter()
-        out = np.zeros(grid.shape, dtype=np.complex128)
+        out = np.zeros(self.shape, dtype=np.complex128)
+        s = self.s
         for g, sg in enumerate(sums):
-            f = probe.scattering_factors([groups.labels[g]], s)[0].reshape(grid.shape)
-            out += f * np.exp(-groups.b_iso[g] * s * s) * sg
-        t2 = time.perf_counter()
-        transforms.append(t1 - t0)
-        pipeline.append(t2 - t0)
-    return statistics.median(transforms), statistics.median(pipeline)
+            f = self.probe.scattering_factors([self.groups.labels[g]], s)[0].reshape(self.shape)
+            out += f * np.exp(-self.groups.b_iso[g] * s * s) * sg
+        return t1 - t0, time.perf_counter() - t0
+
+
+def med_range(values) -> str:
+    return f"{statistics.median(values):.2f} ({min(values):.2f}–{max(values):.2f})"
 
 
 def main() -> None:
@@ -140,16 +150,29 @@ def main() -> None:
     print(f"machine: {cpu_name()}; kernel level {_core.kernel_level()}; {n:,} atoms, X-ray, 3 species")
 
     vol = km.QGrid.volume([-4.1, -3.9, -4.05], [8.0, 0.3, 0.1], [-0.2, 7.9, 0.3], [0.1, -0.3, 8.1], (128, 128, 128))
-    total, core, _ = measure(model, vol, "gridded", args.repeats)
-    fi, pipe = finufft_time(pos, model.groups(), vol, 1e-6, args.repeats)
-    print(f"gridded 128³ tol 1e-6: km.scatter {total:.3f} s (core {core:.3f} s, outside {total - core:.3f} s = "
-          f"{(total - core) / core:.0%} of the core)")
-    print(f"  finufft nufft3d1 x {model.groups().n_groups} groups: transforms {fi:.3f} s, with the factors "
-          f"combined in NumPy {pipe:.3f} s; km.scatter / transforms = {total / fi:.2f}, "
-          f"km.scatter / pipeline = {total / pipe:.2f}; core / transforms = {core / fi:.2f}")
+    fi = Finufft(pos, model.groups(), vol, 1e-6)
+    measure(model, vol, "gridded", 1)  # warm-up of both (first-touch, plans, imports)
+    fi.run()
+    # kinemap and finufft back to back in every repeat; ratios per repeat.
+    rows = []
+    for _ in range(args.repeats):
+        (total,), (core,), _ = measure(model, vol, "gridded", 1)
+        t_fi, t_pipe = fi.run()
+        rows.append((total, core, t_fi, t_pipe))
+    tot, cor, tfi, tpipe = (statistics.median(c) for c in zip(*rows))
+    print(f"gridded 128³ tol 1e-6: km.scatter {tot:.3f} s (core {cor:.3f} s, outside {tot - cor:.3f} s = "
+          f"{(tot - cor) / cor:.0%} of the core); medians of {args.repeats} interleaved repeats")
+    print(f"  finufft nufft3d1 x {model.groups().n_groups} groups: transforms {tfi:.3f} s, with the factors "
+          f"combined in NumPy {tpipe:.3f} s")
+    print("  per-repeat ratios, median (range): km.scatter / transforms = "
+          + med_range([r[0] / r[2] for r in rows]) + ", km.scatter / pipeline = "
+          + med_range([r[0] / r[3] for r in rows]) + ", core / transforms = "
+          + med_range([r[1] / r[2] for r in rows]) + ", outside / core = "
+          + med_range([(r[0] - r[1]) / r[1] for r in rows]))
 
     plane = km.QGrid.plane([-3.0, -2.9, 0.4], [6.0, 0.2, 0.0], [-0.1, 5.8, 0.3], (256, 256))
-    total, core, _ = measure(model, plane, "exact", max(1, args.repeats - 1))
+    totals, cores, _ = measure(model, plane, "exact", max(1, args.repeats - 1))
+    total, core = statistics.median(totals), statistics.median(cores)
     pairs = n * plane.size
     print(f"exact 256²: km.scatter {total:.3f} s ({pairs / total:.3g} pairs/s), core {core:.3f} s, outside "
           f"{total - core:.3f} s = {(total - core) / core:.1%} of the core")
