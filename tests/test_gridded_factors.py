@@ -106,3 +106,10 @@ def test_bad_tables_are_refused_with_the_node():
         plan.finish_into(0, np.zeros(7, complex), np.ones(4, complex), 0.0, 0.1)
     with pytest.raises(InvalidInputError, match="`u`"):
         plan.finish_into(0, np.zeros(8, complex), np.ones(4, complex), 0.0, 0.1, u=np.eye(2))
+
+
+def test_q_beyond_the_probe_table_is_refused_naming_the_grid_range():
+    model = km.Model(np.random.default_rng(0).uniform(0, 10, (3000, 3)), "Fe")
+    grid = km.QGrid.line([0, 0, 0], [90, 0, 0], 4001)
+    with pytest.raises(InvalidInputError, match=r"q-points reach s = sinθ/λ = 7.16.*'Fe'.*s <= 6"):
+        km.scatter(model, grid, method="gridded")

@@ -22,6 +22,7 @@ from collections.abc import Callable, Hashable
 import numpy as np
 
 from .. import _core
+from ..errors import InvalidInputError
 
 #: Bytes of cached form factors kept across atom chunks.
 CACHE_BYTES = 256 << 20
@@ -125,6 +126,12 @@ def group_table(probe, groups, g: int, s_lo: float, s_hi: float,
     """
     label = groups.labels[g]
     b = 0.0 if groups.u_aniso is not None else float(groups.b_iso[g])
+    s_max = getattr(probe, "s_max", None)
+    if s_max is not None and s_hi > s_max * (1.0 + 1e-12):
+        # Said of the grid here: the probe's own message would name a node of the table.
+        raise InvalidInputError(
+            f"the q-points reach s = sinθ/λ = {s_hi:.6g} Å⁻¹ (|q| = {4 * np.pi * s_hi:.6g} Å⁻¹), beyond "
+            f"the probe's table for {label!r}, valid for s <= {s_max:g} Å⁻¹ (|q| <= {4 * np.pi * s_max:.4g} Å⁻¹)")
 
     def factor(s: np.ndarray) -> np.ndarray:
         f = probe.scattering_factors([label], s)[0]
