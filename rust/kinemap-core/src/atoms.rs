@@ -20,7 +20,8 @@ struct Dest([*mut f64; 4]);
 // one task while the vectors are exclusively borrowed.
 unsafe impl Sync for Dest {}
 
-fn check_atom(j: usize, p: [f64; 3], w: f64, g: u32, n_groups: usize) -> Result<()> {
+/// Refuses a non-finite position or weight of atom `j`, naming it.
+pub(crate) fn check_finite(j: usize, p: [f64; 3], w: f64) -> Result<()> {
     if !(p[0].is_finite() && p[1].is_finite() && p[2].is_finite()) {
         return Err(Error::NonFinite(format!(
             "position of atom {j} is not finite: [{}, {}, {}]",
@@ -32,6 +33,11 @@ fn check_atom(j: usize, p: [f64; 3], w: f64, g: u32, n_groups: usize) -> Result<
             "weight of atom {j} is not finite: {w}"
         )));
     }
+    Ok(())
+}
+
+fn check_atom(j: usize, p: [f64; 3], w: f64, g: u32, n_groups: usize) -> Result<()> {
+    check_finite(j, p, w)?;
     if g as usize >= n_groups {
         return Err(Error::Range(format!(
             "group index of atom {j} is {g}, but there are only {n_groups} groups"

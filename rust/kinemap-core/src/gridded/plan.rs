@@ -56,17 +56,18 @@ fn check_atoms(positions: &[[f64; 3]], weights: &[f64], slots: &[u32]) -> Result
         )));
     }
     for (j, (p, w)) in positions.iter().zip(weights).enumerate() {
-        if !(p[0].is_finite() && p[1].is_finite() && p[2].is_finite()) {
-            return Err(Error::NonFinite(format!(
-                "position of atom {j} is not finite: [{}, {}, {}]",
-                p[0], p[1], p[2]
-            )));
-        }
-        if !w.is_finite() {
-            return Err(Error::NonFinite(format!(
-                "weight of atom {j} is not finite: {w}"
-            )));
-        }
+        crate::atoms::check_finite(j, *p, *w)?;
+    }
+    Ok(())
+}
+
+/// Refuses an output of the wrong length for `m` points (`what`: what a point is).
+fn check_out(out: &[Complex64], m: usize, what: &str) -> Result<()> {
+    if out.len() != m {
+        return Err(Error::Shape(format!(
+            "the output must have one value per {what} ({m}), got {}",
+            out.len()
+        )));
     }
     Ok(())
 }
@@ -382,13 +383,7 @@ impl RegularPlan {
         out: &mut [Complex64],
         threads: Option<usize>,
     ) -> Result<()> {
-        let m = self.n_points();
-        if out.len() != m {
-            return Err(Error::Shape(format!(
-                "the output must have one value per grid point ({m}), got {}",
-                out.len()
-            )));
-        }
+        check_out(out, self.n_points(), "grid point")?;
         let Some(mut grid) = self.slots.get_mut(slot).and_then(|g| g.take()) else {
             return Ok(());
         };
@@ -618,13 +613,7 @@ impl PointPlan {
         out: &mut [Complex64],
         threads: Option<usize>,
     ) -> Result<()> {
-        let m = self.q.len();
-        if out.len() != m {
-            return Err(Error::Shape(format!(
-                "the output must have one value per q-point ({m}), got {}",
-                out.len()
-            )));
-        }
+        check_out(out, self.q.len(), "q-point")?;
         let Some(sums) = self.sums(slot, threads)? else {
             return Ok(());
         };
